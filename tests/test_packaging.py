@@ -1,0 +1,44 @@
+"""The import names `tracker`, `physics`, `fallcam` belong to our distribution only, and the
+tests run against the installed package."""
+
+import ast
+import importlib.metadata
+import pathlib
+
+import fallcam
+import physics
+import tracker
+
+
+def test_import_names_belong_to_fallcam_only():
+    owners = importlib.metadata.packages_distributions()
+    for name in ("tracker", "physics", "fallcam"):
+        assert owners.get(name) == ["fallcam"], f"{name} is claimed by {owners.get(name)}"
+
+
+def test_physics_never_imports_tracker():
+    root = pathlib.Path(physics.__file__).parent
+    offenders = []
+    for path in root.rglob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.Import):
+                mods = [a.name for a in node.names]
+            elif isinstance(node, ast.ImportFrom):
+                mods = [node.module or ""]
+            else:
+                continue
+            if any(m == "tracker" or m.startswith("tracker.") or m.startswith("fallcam") for m in mods):
+                offenders.append(f"{path.name}:{node.lineno}")
+    assert not offenders, f"physics imports tracker/fallcam at {offenders}"
+
+
+def test_tracker_never_imports_fallcam():
+    root = pathlib.Path(tracker.__file__).parent
+    for path in root.rglob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("fallcam"):
+                raise AssertionError(f"tracker imports fallcam at {path.name}:{node.lineno}")
+
+
+def test_version_matches_metadata():
+    assert fallcam.__version__ == importlib.metadata.version("fallcam")
