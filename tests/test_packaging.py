@@ -42,3 +42,17 @@ def test_tracker_never_imports_fallcam():
 
 def test_version_matches_metadata():
     assert fallcam.__version__ == importlib.metadata.version("fallcam")
+
+
+def test_tests_import_the_installed_package():
+    """With a regular (non-editable) install, as CI does, the modules come from site-packages,
+    not from the working copy."""
+    import json
+
+    dist = importlib.metadata.distribution("fallcam")
+    direct = dist.read_text("direct_url.json")
+    if direct and json.loads(direct).get("dir_info", {}).get("editable"):
+        return  # a developer's editable install maps the imports to the checkout on purpose
+    for module in (tracker, physics, fallcam):
+        installed = pathlib.Path(dist.locate_file(f"{module.__name__}/__init__.py")).resolve()
+        assert pathlib.Path(module.__file__).resolve() == installed
