@@ -394,8 +394,8 @@ def series_plot(table: Any, fit: Any, path: str | os.PathLike, *,
                 elinewidth=1.0, capsize=3, label="balls: mean of the repeats (error bars ±2u)")
     for r, x, y in zip(rows, d2_mm2, v_mm_s, strict=True):
         label = f"{r.get('ball', '')} (n = {r['n']})" if "n" in r else str(r.get("ball", ""))
-        right = x > 0.75 * span[-1]  # off the line: above-left for the largest balls (inside the axes), below-right otherwise
-        ax.annotate(label, (x, y), xytext=(-8, 6) if right else (8, -12), textcoords="offset points",
+        right = x > 0.75 * span[-1]  # below the line (empty, away from the legend): left of the largest balls, right otherwise
+        ax.annotate(label, (x, y), xytext=(-10, -14) if right else (8, -12), textcoords="offset points",
                     fontsize=8, ha="right" if right else "left")
     power = fit_d.get("power_law")
     if power:
