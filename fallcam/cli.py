@@ -422,7 +422,21 @@ def _cmd_analyze(args: argparse.Namespace, out: TextIO) -> int:
         _print_json(summary, out)
     elif not args.quiet:
         _print_summary(summary, Path(args.out), out)
+    _require_plateau(summary, args.clip, Path(args.out))
     return 0
+
+
+def _require_plateau(summary: dict, clip: str, out_dir: Path) -> None:
+    """Exit 4 (after the results are written) when no passage reached a terminal-speed plateau."""
+    tracks = summary.get("tracks") or []
+    if any(tr.get("terminal_velocity_m_s") is not None for tr in tracks):
+        return
+    from fallcam.errors import NoResultError
+
+    reasons = "; ".join(f"track {tr.get('id')}: {(tr.get('plateau') or {}).get('reason') or 'no plateau'}"
+                        for tr in tracks) or "no passage"
+    raise NoResultError(f"{clip}: no terminal-speed plateau ({reasons})",
+                        hint=f"the transient estimate and the figures are in {out_dir}")
 
 
 def _cmd_track(args: argparse.Namespace, out: TextIO) -> int:

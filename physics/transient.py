@@ -56,6 +56,10 @@ __all__ = [
 ADDED_MASS_COEFFICIENT = 0.5  # C_A of a sphere (from memory: any hydrodynamics text, e.g. Lamb)
 _DEGENERATE_DISC = 1e-6  # |β̃² − 4| below this: double root, evaluated by symmetric offsets
 _DEGENERATE_STEP = 1e-3  # relative offset of β̃ used there (error O(step²) = 1e-6)
+#: Release times tried on a grid across the record (as fractions −0.5 … 0.5 of its span) and how
+#: many of the best of them are refined by least squares.
+_RELEASE_GRID = 11
+_REFINED_STARTS = 3
 _LABEL = "transient estimate"
 
 
@@ -470,11 +474,16 @@ def fit_transient(
         return sw * (z - position(params))
 
     span = t[-1] - t[0]
-    best: Any = None
-    for t0 in t[0] + span * np.linspace(-0.5, 0.5, 11):
+    starts = []
+    for t0 in t[0] + span * np.linspace(-0.5, 0.5, _RELEASE_GRID):
         shape = position(np.array([t0, 0.0, math.log(mu0)]))
         z0 = float(np.sum(w * (z - shape)) / np.sum(w))
-        sol = least_squares(residual, np.array([t0, z0, math.log(mu0)]), x_scale="jac", method="trf")
+        x0 = np.array([t0, z0, math.log(mu0)])
+        starts.append((float(np.sum(residual(x0) ** 2)), x0))
+    # refine only the most promising release times: each refinement costs hundreds of model runs
+    best: Any = None
+    for _, x0 in sorted(starts, key=lambda s: s[0])[:_REFINED_STARTS]:
+        sol = least_squares(residual, x0, x_scale="jac", method="trf")
         if best is None or sol.cost < best.cost:
             best = sol
     params = best.x

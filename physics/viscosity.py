@@ -61,6 +61,9 @@ _LN_RE_TOL = 1e-14
 _MAX_ITERATIONS = 200
 
 
+#: Rounding allowance on the log residual of the force balance (a few ulps of ln(C_D Re²)).
+_LN_ROUNDING = 1e-12
+
 def _density_difference(rho_s_kg_m3: Any, rho_f_kg_m3: Any) -> tuple[Array, Array, Array]:
     rho_s = require_positive_array("rho_s_kg_m3", rho_s_kg_m3, "a ball density in kg/m³ > 0")
     rho_f = require_positive_array("rho_f_kg_m3", rho_f_kg_m3, "a liquid density in kg/m³ > 0")
@@ -555,13 +558,15 @@ def terminal_velocity(
 
     re_max = DRAG_LAWS[drag].re_solve_max
     hi = min(archimedes / 18.0, re_max)
-    if float(residual(np.array([hi]))[0]) < 0.0:
+    r_hi = float(residual(np.array([hi]))[0])
+    if r_hi < -_LN_ROUNDING:
         raise ValueError(
             f"mu_pa_s = {mu_pa_s!r} gives Re > {re_max:g} for this ball and liquid, beyond the {drag} drag curve's "
             "invertible range; expected a more viscous liquid or a smaller ball"
         )
     lo = hi / float(inertia_factor(hi, drag))
-    re = float(_root_ln(residual, np.array([lo]), np.array([hi]))[0])
+    # Stokes drag (φ ≡ 1): the upper bracket is the solution itself, up to rounding
+    re = hi if abs(r_hi) <= _LN_ROUNDING else float(_root_ln(residual, np.array([lo]), np.array([hi]))[0])
     phi = float(inertia_factor(re, drag))
     v_inf = re * mu / (rho_f * d)
     warnings.extend(_regime_warnings(re, drag, tube_d_m, lam))

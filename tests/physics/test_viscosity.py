@@ -234,3 +234,12 @@ def test_oseen_has_no_solution_when_the_closed_form_turns_negative():
     assert stokes_viscosity(0.2, 2e-3, 7810, 1261) < 3 / 16 * 1261 * 0.2 * 2e-3
     with pytest.raises(ValueError, match=r"v_m_s = 0\.2 is too fast for this ball and liquid: the oseen drag curve"):
         infer_viscosity(0.2, 2e-3, 7810, 1261, drag="oseen")
+
+
+def test_forward_model_with_stokes_drag_is_bare_stokes():
+    """With Stokes drag the forward model's bracket is the solution itself; it must not be
+    rejected as 'beyond the curve' by rounding (check #1: v∞ = 1.0121947e-2 m/s, computed: Stokes)."""
+    from physics import viscosity as _v
+
+    pred = _v.terminal_velocity(1.410, 2.000e-3, 7810.0, 1261.0, g_m_s2=9.80665, drag="stokes")
+    assert abs(pred.v_m_s / 1.0121947e-2 - 1.0) < 1e-6

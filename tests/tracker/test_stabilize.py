@@ -1,0 +1,110 @@
+"""Registration of frames to the static scene (tracker.stabilize) against exact known shifts.
+
+The scene is an analytic function (tube walls, a ruler with repeating ticks, marks across the
+tube, the liquid surface) evaluated at (x − dx, y − dy), so each frame's true shift is exact.
+"""
+
+import numpy as np
+import pytest
+
+from tracker.stabilize import Stabilizer
+
+H, W = 360, 480
+# Gauss–Newton on eight 32-px patches with 1.5 DN noise: ~0.01 px per axis; 0.03 px is the
+# tolerance (well under the 0.15 px centre budget the registration feeds into).
+SHIFT_RMS_TOL_PX = 0.03
+SHIFT_MAX_TOL_PX = 0.08
+
+
+def _ramp(d):
+    """Coverage of a pixel by a half-plane at signed distance d (px): a 1-px linear edge."""
+    return np.clip(0.5 + d, 0.0, 1.0)
+
+
+def _scene(dx, dy, *, gain=1.0, rng=None, noise=1.5, walls_only=False, blob=None):
+    x = np.arange(W)[None, :] - dx
+    y = np.arange(H)[:, None] - dy
+    img = np.full((H, W), 190.0) + 0.02 * x + 0.0 * y
+
+    def band(c, width, depth, coord):
+        return (_ramp(width / 2 - np.abs(coord - c))) * depth
+
+    img = img - band(180, 10, 110, x) - band(320, 10, 110, x)
+    if not walls_only:
+        in_ruler = _ramp(8 - np.abs(x - 380))
+        minor = band(0, 1.5, 90, ((y + 2.0) % 8.0) - 4.0)          # a tick every 8 px
+        major = band(0, 2.0, 60, ((y + 2.0) % 40.0) - 20.0) * _ramp(3 - np.abs(x - 372))
+        img = img - in_ruler * (minor + major)
+        img = img - band(120.0, 3, 100, y) * _ramp(70 - np.abs(x - 250))   # a mark
+        img = img - band(40.0, 2, 80, y) * _ramp(70 - np.abs(x - 250))     # liquid surface
+    if blob is not None:
+        bx, by = blob
+        img = img - 150.0 * _ramp(7 - np.hypot(np.arange(W)[None, :] - bx, np.arange(H)[:, None] - by))
+    img = img * gain
+    if rng is not None:
+        img = img + rng.normal(0.0, noise, img.shape)
+    return np.clip(np.round(img), 0, 255).astype(np.uint8)
+
+
+def _run(shifts, *, gains=None, blobs=None, exclude=False, seed=0):
+    rng = np.random.default_rng(seed)
+    st = Stabilizer(_scene(0.0, 0.0, rng=rng))
+    errors = []
+    for k, (dx, dy) in enumerate(shifts):
+        blob = None if blobs is None else blobs[k]
+        frame = _scene(dx, dy, gain=1.0 if gains is None else gains[k], rng=rng, blob=blob)
+        boxes = [(blob[0] - 12, blob[1] - 12, blob[0] + 12, blob[1] + 12)] if exclude and blob else []
+        reg = st.register(frame, exclude_boxes=boxes)
+        assert reg.ok
+        errors.append((reg.dx_px - dx, reg.dy_px - dy))
+    return np.array(errors)
+
+
+def _wander(n, seed):
+    rng = np.random.default_rng(seed)
+    return np.cumsum(rng.normal(0.0, 0.6, (n, 2)), axis=0)
+
+
+def test_handheld_wander():
+    err = _run(_wander(40, 1))
+    assert np.sqrt((err ** 2).mean(axis=0)).max() < SHIFT_RMS_TOL_PX
+    assert np.abs(err).max() < SHIFT_MAX_TOL_PX
+
+
+def test_tap_jolt_is_recovered():
+    """A tap moves the view by 11 px within one frame: larger than half the ruler's tick period,
+    so only the marks and the surface tell the right alias."""
+    shifts = _wander(30, 2)
+    shifts[15:] += np.array([5.0, -11.0])
+    err = _run(shifts)
+    assert np.abs(err).max() < SHIFT_MAX_TOL_PX
+
+
+def test_exposure_dip_does_not_bias():
+    shifts = _wander(20, 3)
+    gains = np.where(np.arange(20) % 5 == 0, 0.7, 1.0)
+    err = _run(shifts, gains=gains)
+    assert np.abs(err).max() < SHIFT_MAX_TOL_PX
+
+
+@pytest.mark.parametrize("exclude", [True, False], ids=["excluded", "rejected-as-outlier"])
+def test_object_passing_a_patch(exclude):
+    """A dark ball crossing the registration patches: excluded by the tracker's box, or dropped
+    as an outlier patch."""
+    st = Stabilizer(_scene(0.0, 0.0))
+    cx, cy = st.centres[0]
+    shifts = _wander(20, 4) * 0.3
+    blobs = [(cx + 2.0, cy - 20.0 + 2.0 * k) for k in range(20)]
+    err = _run(shifts, blobs=blobs, exclude=exclude)
+    assert np.abs(err).max() < SHIFT_MAX_TOL_PX
+
+
+def test_scene_without_horizontal_structure_is_weak_in_y():
+    st = Stabilizer(_scene(0.0, 0.0, walls_only=True))
+    assert st.weak_axes == ["y"]
+    assert Stabilizer(_scene(0.0, 0.0)).weak_axes == []
+
+
+def test_bad_reference():
+    with pytest.raises(ValueError, match=r"reference: expected a 2-D grey image, got shape \(8, 8, 3\)"):
+        Stabilizer(np.zeros((8, 8, 3), np.uint8))
