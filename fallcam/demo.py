@@ -61,7 +61,7 @@ def clip_spec(ball_diameter_mm: float = 2.0, *, seed: int = 1, release_t_s: floa
         horizontal_magnification=1.3, ball_diameter_mm=ball_diameter_mm, polarity="dark",
         highlight=True, terminal_velocity_mm_s=st["terminal_velocity_mm_s"], tau_s=st["tau_s"],
         motion="exponential", drops=(synth.Drop(release_t_s=release_t_s, z0_mm=-12.0),),
-        rotation_deg=90, noise_dn=2.0, marks_mm=(15.0, 95.0), surface_z_mm=-14.0,
+        rotation_deg=90, noise_dn=2.0, marks_mm=(10.0, 40.0), surface_z_mm=-14.0,
         tube_inner_diameter_mm=TUBE_INNER_DIAMETER_MM, camera_distance_mm=450.0, crf=23, seed=seed)
 
 

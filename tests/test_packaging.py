@@ -56,3 +56,12 @@ def test_tests_import_the_installed_package():
     for module in (tracker, physics, fallcam):
         installed = pathlib.Path(dist.locate_file(f"{module.__name__}/__init__.py")).resolve()
         assert pathlib.Path(module.__file__).resolve() == installed
+
+
+def test_readme_shows_the_same_safety_cautions_as_the_reports():
+    from fallcam.safety import SAFETY_CAUTIONS
+
+    readme = pathlib.Path(__file__).resolve().parents[1] / "README.md"
+    text = readme.read_text(encoding="utf-8")
+    for caution in SAFETY_CAUTIONS:
+        assert f"- {caution}" in text, caution[:60]
