@@ -106,10 +106,20 @@ def bench_throughput(work: Path, duration_s: float) -> dict:
             for name, (w, c) in rows.items()}
 
 
-def _peak_rss_mb(clip: Path, rig_path: Path) -> float:
-    code = ("import resource,sys\nfrom fallcam.rig import load_rig\nfrom tracker.track import track_clip\n"
-            "rig=load_rig(sys.argv[2])\ntrack_clip(sys.argv[1], rig.scale(), expect_direction='down')\n"
-            "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss/1024)")
+_HWM = ("def hwm():\n    for line in open('/proc/self/status'):\n"
+        "        if line.startswith('VmHWM:'):\n            return int(line.split()[1]) / 1024\n")
+
+
+def _peak_rss_mb(clip: Path, rig_path: Path, what: str) -> float:
+    """Peak resident memory of one job in a fresh process (VmHWM: ru_maxrss would carry over the
+    parent's high-water mark across exec)."""
+    job = {
+        "track": ("from fallcam.rig import load_rig\nfrom tracker.track import track_clip\n"
+                  "track_clip(sys.argv[1], load_rig(sys.argv[2]).scale(), expect_direction='down')\n"),
+        "decode": ("import av\nc = av.open(sys.argv[1]); s = c.streams.video[0]; s.thread_type = 'AUTO'\n"
+                   "for f in c.decode(s): f.to_ndarray(format='gray')\n"),
+    }[what]
+    code = "import sys\n" + _HWM + job + "print(hwm())"
     out = subprocess.run([sys.executable, "-c", code, str(clip), str(rig_path)], check=True,
                          capture_output=True, text=True)
     return float(out.stdout.strip().splitlines()[-1])
@@ -126,8 +136,10 @@ def bench_memory(work: Path, durations: tuple[float, float]) -> dict:
         if not clip.exists():
             synth.write_clip(spec, clip)
         rig_path = write_rig(spec, work / f"uhd_{d:g}s.toml")
-        res[d] = _peak_rss_mb(clip, rig_path)
-        print(f"   {d:5.1f} s ({int(d * 60)} frames): peak RSS {res[d]:7.1f} MB")
+        res[d] = _peak_rss_mb(clip, rig_path, "track")
+        dec = _peak_rss_mb(clip, rig_path, "decode")
+        print(f"   {d:5.1f} s ({int(d * 60)} frames): peak RSS track {res[d]:7.1f} MB, "
+              f"decode-only {dec:7.1f} MB, ratio {res[d] / dec:.2f}")
     a, b = durations
     print(f"   ratio peak({b:g} s) ÷ peak({a:g} s) = {res[b] / res[a]:.3f} for {b / a:.1f}× the length")
     return {f"{k:g}s": v for k, v in res.items()}

@@ -329,6 +329,16 @@ def _crashed(job: _ClipJob) -> ClipOutcome:
                        seconds=0.0)
 
 
+def _share_cores(threads: int) -> None:
+    """Worker initialiser: cap decoder and OpenCV threads so parallel clips share the cores."""
+    import cv2
+
+    from tracker.video import DECODE_THREADS_ENV
+
+    os.environ[DECODE_THREADS_ENV] = str(threads)
+    cv2.setNumThreads(threads)
+
+
 def _run_local(jobs: list[_ClipJob], worker: Worker, n_jobs: int,
                report: Callable[[int, ClipOutcome], None]) -> None:
     """Run ``jobs`` on ``n_jobs`` local processes; isolate clips that kill their process."""
@@ -336,7 +346,8 @@ def _run_local(jobs: list[_ClipJob], worker: Worker, n_jobs: int,
     suspects: deque[tuple[int, _ClipJob]] = deque()
     width = n_jobs
     while pending:
-        pool = ProcessPoolExecutor(max_workers=min(width, len(pending)))
+        pool = ProcessPoolExecutor(max_workers=min(width, len(pending)), initializer=_share_cores,
+                                   initargs=(max(1, (os.cpu_count() or 1) // max(width, 1)),))
         in_flight: dict[Future[ClipOutcome], tuple[int, _ClipJob]] = {}
         try:
             while pending or in_flight:

@@ -36,6 +36,7 @@ Every failure to read the file becomes :class:`tracker.errors.ClipError` with a 
 from __future__ import annotations
 
 import math
+import os
 import pathlib
 import re
 from collections.abc import Iterator
@@ -639,6 +640,10 @@ def _luma(frame, mode, rotation_deg: int) -> np.ndarray:
     return y if fresh else np.array(y, order="C")  # the one copy, out of the decoder's buffer
 
 
+#: Environment variable capping the decoder's threads (set by ``fallcam batch`` in its workers so
+#: that N parallel clips share the cores instead of each decoding on all of them).
+DECODE_THREADS_ENV = "FALLCAM_DECODE_THREADS"
+
 def _same_picture(luma: np.ndarray, previous: np.ndarray | None) -> bool:
     """Byte-identical luma; a sparse row sample rejects the usual (different) case cheaply."""
     if previous is None:
@@ -650,6 +655,9 @@ def _same_picture(luma: np.ndarray, previous: np.ndarray | None) -> bool:
 def _decode(clip: pathlib.Path, info: ClipInfo) -> Iterator[Frame]:
     with _open(clip) as container:
         stream = _video_stream(container, clip)
+        threads = os.environ.get(DECODE_THREADS_ENV)
+        if threads:  # a parallel batch gives each worker its share of the cores
+            stream.codec_context.thread_count = max(1, int(threads))
         stream.codec_context.thread_type = "AUTO"
         tick_s = float(stream.time_base or 1) * info.time_scale
         nominal_step_s = info.time_scale / info.stored_fps
