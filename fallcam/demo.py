@@ -138,11 +138,10 @@ def run_demo(out_dir: str | Path, *, progress: Progress | None = None, seed: int
     Writes ``demo_clip.mp4``, ``demo_rig.toml`` and everything ``fallcam analyze`` writes; the
     returned summary carries ``demo`` with the values the clip was rendered with.
     """
-    from tracker import synth
-
     from fallcam.analyze import analyze_clip
     from fallcam.atomic import atomic_write_json, json_ready
     from fallcam.rig import load_rig
+    from tracker import synth
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)

@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
+from physics._results import plain
 from physics.plateau import Plateau
 from physics.terminal import MM_PER_M, TerminalFit, fit_line, trajectory_arrays
 
@@ -40,20 +41,6 @@ HAND_TIMING_U_S = 0.10
 #: Coverage factor of the band around v_t that a local speed must fall in to count as terminal.
 TERMINAL_BAND_K = 2.0
 _RECENTRE = 3  # local fits around a crossing (the first one starts at the first point past the mark)
-
-
-def _to_dict(obj: Any) -> dict[str, Any]:
-    out: dict[str, Any] = {}
-    for name in obj.__dataclass_fields__:
-        value = getattr(obj, name)
-        if isinstance(value, (float, np.floating)):
-            value = float(value)
-        elif isinstance(value, (bool, np.bool_)):
-            value = bool(value)
-        elif isinstance(value, list):
-            value = list(value)
-        out[name] = value
-    return out
 
 
 @dataclass(frozen=True)
@@ -98,7 +85,7 @@ class MarkResult:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary of the attributes."""
-        return _to_dict(self)
+        return plain(self)
 
 
 def _local_covariance(t_window: NDArray[np.float64], plateau: Plateau, fallback: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -248,7 +235,7 @@ class StopwatchInterval:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary of the attributes."""
-        return _to_dict(self)
+        return plain(self)
 
 
 def stopwatch_comparison(

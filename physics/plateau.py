@@ -64,6 +64,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.optimize import isotonic_regression
 from scipy.stats import norm
 
+from physics._results import plain
 from physics.terminal import fit_line, hac_covariance, sliding_line_weights, trajectory_arrays
 
 __all__ = ["Plateau", "find_plateau"]
@@ -170,17 +171,7 @@ class Plateau:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (masks as lists of bool, plain floats)."""
-        out: dict[str, Any] = {}
-        for name in self.__dataclass_fields__:
-            value = getattr(self, name)
-            if isinstance(value, np.ndarray):
-                value = [bool(v) for v in value]
-            elif isinstance(value, (float, np.floating)):
-                value = float(value)
-            elif isinstance(value, list):
-                value = list(value)
-            out[name] = value
-        return out
+        return plain(self)
 
 
 def _criterion(alpha: float, m: int) -> str:

@@ -38,6 +38,8 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
+from physics._results import plain
+
 __all__ = [
     "MM_PER_M",
     "LineFit",
@@ -372,17 +374,7 @@ class TerminalFit:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (plain floats, lists), keys as the attributes."""
-        out: dict[str, Any] = {}
-        for name in self.__dataclass_fields__:
-            value = getattr(self, name)
-            if isinstance(value, tuple):
-                value = [float(v) for v in value]
-            elif isinstance(value, list):
-                value = list(value)
-            elif isinstance(value, (float, np.floating)):
-                value = float(value)
-            out[name] = value
-        return out
+        return plain(self)
 
 
 def fit_terminal_velocity(

@@ -38,6 +38,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.optimize import brentq, least_squares
 from scipy.special import wofz
 
+from physics._results import plain
 from physics.drag import STOKES_RE_MAX, require_positive
 from physics.terminal import MM_PER_M, fit_line, hac_covariance, trajectory_arrays
 from physics.viscosity import reynolds_number, stokes_terminal_velocity
@@ -182,7 +183,7 @@ class TransientModel:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary of the attributes."""
-        return {k: (float(v) if isinstance(v, (float, np.floating)) else v) for k, v in self.__dict__.items()}
+        return plain(self)
 
 
 def transient_model(
@@ -381,10 +382,7 @@ class TransientFit:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary of the attributes."""
-        out: dict[str, Any] = {}
-        for k, v in self.__dict__.items():
-            out[k] = float(v) if isinstance(v, (float, np.floating)) else (list(v) if isinstance(v, list) else v)
-        return out
+        return plain(self)
 
 
 def fit_transient(

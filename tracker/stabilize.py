@@ -283,7 +283,6 @@ class Stabilizer:
         """Iterate the shared translation; returns (shift, per-patch normalised residual)."""
         ci, bmat, red, basis = self._ci[idx], self._b[idx], self._red[idx], self._basis[idx]
         reg = 1e-6 * max(float(np.trace(red.sum(axis=0))), 1.0) * np.eye(2)
-        n = len(idx)
         stack, origin = self._smoothed_regions(luma, shift, idx)
         for it in range(_MAX_ITER + 1):
             if float(np.abs(shift - origin - 0.5).max()) > _SMOOTH_BORDER - 4:
