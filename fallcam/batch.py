@@ -330,13 +330,14 @@ def _crashed(job: _ClipJob) -> ClipOutcome:
 
 
 def _share_cores(threads: int) -> None:
-    """Worker initialiser: cap decoder and OpenCV threads so parallel clips share the cores."""
-    import cv2
+    """Worker initialiser: cap the decoder's threads so parallel clips share the cores.
 
+    (OpenCV's thread pool is left alone: reconfiguring it in a forked worker whose parent had
+    already started it hangs.)
+    """
     from tracker.video import DECODE_THREADS_ENV
 
     os.environ[DECODE_THREADS_ENV] = str(threads)
-    cv2.setNumThreads(threads)
 
 
 def _run_local(jobs: list[_ClipJob], worker: Worker, n_jobs: int,
