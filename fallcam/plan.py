@@ -27,6 +27,7 @@ from typing import Any
 
 from fallcam.errors import UsageError
 from fallcam.rig import Rig
+from physics import rolling_shutter
 from physics.drag import STOKES_RE_MAX, WALL_WARN_LAMBDA, bottom_exclusion_mm
 from physics.transient import transient_model
 from physics.viscosity import terminal_velocity
@@ -45,6 +46,10 @@ COMMON_FPS = (30.0, 60.0, 120.0, 240.0)
 
 _SKIP_TAU_MULTIPLE = 7.0  # physics-references.md §5: skip at least max(7τ, R²/ν) after release
 _MM_PER_M = 1000.0
+
+#: Readout time of a typical 1080p phone sensor, s: 26–33 ms measured for several phones
+#: (published: Oth et al. 2013 and Ringaby & Forssén 2011, physics-references §11).
+TYPICAL_READOUT_S = 0.030
 
 
 @dataclasses.dataclass(frozen=True)
@@ -332,6 +337,15 @@ def plan(rig: Rig, viscosity_pa_s: float | None = None, *, target_u_rel: float =
         elif stretch_mm > usable:
             warnings.append(f"the timed stretch ({stretch_mm:.0f} mm) is longer than the usable depth "
                             f"({usable:.0f} mm): move the marks closer together")
+    if not rig.camera.readout_ms:
+        # the field is at least as tall as the timed stretch: an upper bound on the bias c·v
+        c = rolling_shutter.readout_coefficient(TYPICAL_READOUT_S, stretch_mm / _MM_PER_M)
+        bias = rolling_shutter.apparent_velocity(pred.v_m_s, c) / pred.v_m_s - 1.0
+        if bias > target_u_rel:
+            warnings.append(
+                f"no [camera] readout_ms: a rolling shutter of {TYPICAL_READOUT_S * 1e3:.0f} ms (typical "
+                f"1080p phone) reading along the fall biases v by up to +{100 * bias:.2g} % over a "
+                f"{stretch_mm:.0f} mm field; film in portrait (readout across the fall) or give readout_ms")
     if tube_mm is None:
         warnings.append("the rig gives no [tube] inner_diameter_mm: no wall factor is predicted "
                         "(and the analysis will apply none)")
