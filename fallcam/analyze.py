@@ -38,6 +38,8 @@ LOCAL_VELOCITY_WINDOW = 9
 #: and webcam clocks, 50 ppm (common practice, no source). Nominal timing gets 0.1 % (the
 #: size of the nominal-vs-actual rate differences seen in phone video, physics-references §9).
 TIME_BASE_U_REL = {"container": 5e-5, "nominal": 1e-3}
+#: Points given to the transient (history-force) fit; see :func:`_transient_points`.
+TRANSIENT_MAX_POINTS = 150
 #: Lateral drift over the plateau above this fraction of the tube diameter is reported.
 LATERAL_DRIFT_WARN_FRACTION = 0.05
 
@@ -150,6 +152,17 @@ def _comparison(mu: float, u_mu_no_temperature: float, rig: Rig) -> dict[str, An
     return out
 
 
+def _transient_points(t: np.ndarray, plat: plateau.Plateau) -> np.ndarray:
+    """Points for the transient fit: every point of the approach, the rest thinned evenly to
+    about ``TRANSIENT_MAX_POINTS`` (each model evaluation of the history force costs ~0.1 ms per
+    point, and the plateau's information on μ saturates long before its last frame)."""
+    keep = np.zeros(t.size, bool)
+    keep[:: max(1, math.ceil(t.size / TRANSIENT_MAX_POINTS))] = True
+    if plat.start_s is not None:
+        keep |= t <= plat.start_s
+    return keep
+
+
 def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray,
                    timestamps: str, frame_height_px: int, last_frame: int
                    ) -> tuple[dict[str, Any], np.ndarray, np.ndarray]:
@@ -225,7 +238,7 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
             tr = transient.fit_transient(t, z, d_m=d_m, rho_s_kg_m3=rig.ball.density_kg_m3,
                                          rho_f_kg_m3=rig.liquid.density_kg_m3,
                                          g_m_s2=rig.gravity_m_s2(), wall_factor=wall_value,
-                                         z_u_mm=zu)
+                                         z_u_mm=zu, mask=_transient_points(t, plat))
             out["transient"] = tr.to_dict()
         except ValueError as exc:
             out["transient"] = {"label": "transient estimate", "ok": False, "reason": str(exc)}
