@@ -241,7 +241,7 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
                                          z_u_mm=zu, mask=_transient_points(t, plat))
             out["transient"] = tr.to_dict()
         except ValueError as exc:
-            out["transient"] = {"label": "transient estimate", "ok": False, "reason": str(exc)}
+            out["transient"] = {"label": "transient estimate", "converged": False, "reason": str(exc)}
 
     if fit is not None and can_mu:
         res = viscosity.infer_viscosity(fit.v_m_s, d_m, rig.ball.density_kg_m3, rig.liquid.density_kg_m3,

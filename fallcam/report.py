@@ -55,9 +55,9 @@ h3 { font-size: 1.05rem; margin-bottom: 0.3rem; }
 .warnings li { margin: 0.2rem 0; }
 .ok { border: 2px solid #060; background: #f2fbf2; padding: 0.4rem 1rem; margin: 1rem 0; }
 .cards { display: flex; flex-wrap: wrap; gap: 0.6rem; margin: 0.6rem 0; }
-.card { border: 1.5px solid #333; padding: 0.4rem 0.8rem; min-width: 12rem; flex: 1 1 12rem; }
+.card { border: 1.5px solid #333; padding: 0.4rem 0.8rem; min-width: 15rem; flex: 1 1 15rem; }
 .card .label { font-size: 0.8rem; color: #444; }
-.card .value { font-size: 1.25rem; font-weight: 600; white-space: nowrap; }
+.card .value { font-size: 1.2rem; font-weight: 600; overflow-wrap: anywhere; }
 .card .note { font-size: 0.78rem; color: #444; }
 table { border-collapse: collapse; margin: 0.5rem 0 1rem 0; font-size: 0.9rem; }
 th, td { border: 1px solid #999; padding: 0.2rem 0.5rem; text-align: left; vertical-align: top; }
@@ -388,11 +388,11 @@ def _marks_section(track: Mapping[str, Any]) -> str:
         for p in stopwatch:
             transit = finite_or_none(p.get("transit_s"))
             rows.append(
-                f"<tr><td>mark {_index_label(p.get('from'))} → mark {_index_label(p.get('to'))}"
+                f"<tr><td>mark {_index_label(p.get('from_index'))} → mark {_index_label(p.get('to_index'))}"
                 f"</td><td class=\"num\">{_fmt(transit, '.4f')}</td>"
-                f"<td class=\"num\">{_fmt(_scaled(p.get('velocity_m_s'), 1000.0), '.5g')}</td>"
+                f"<td class=\"num\">{_fmt(_scaled(p.get('stopwatch_speed_m_s'), 1000.0), '.5g')}</td>"
                 f"<td class=\"num\">{_timing_u(p.get('hand_timing_u_s'), transit)}</td>"
-                f"<td class=\"num\">{_timing_u(p.get('video_timing_u_s'), transit)}</td></tr>")
+                f"<td class=\"num\">{_timing_u(p.get('transit_u_s'), transit)}</td></tr>")
         rows.append("</table>")
         parts.append("".join(rows))
     return "".join(parts)
@@ -411,11 +411,11 @@ def _transient_section(transient: Mapping[str, Any] | None) -> str:
         return ""
     facts = [
         ("model", _e(transient.get("model") or "—")),
-        ("fit converged", _yes_no(transient.get("ok"))),
+        ("fit converged", _yes_no(transient.get("converged"))),
         ("time constant τ", f"{_fmt(transient.get('tau_s'), '.3g')} s"),
-        ("terminal velocity", f"{_fmt(_scaled(transient.get('terminal_velocity_m_s'), 1e3), '.5g')}"
+        ("terminal velocity", f"{_fmt(_scaled(transient.get('v_m_s'), 1e3), '.5g')}"
                               " mm/s"),
-        ("viscosity (transient estimate)", f"{_fmt(transient.get('viscosity_pa_s'), '.4g')} Pa·s"),
+        ("viscosity (transient estimate)", f"{_fmt(transient.get('mu_pa_s'), '.4g')} Pa·s"),
     ]
     return ("<h3>Cross-check: fit of the approach to terminal speed</h3>"
             + _pairs_table(facts, escape_values=False))

@@ -49,6 +49,12 @@ def test_analyze_bundled_clip_recovers_the_generating_viscosity(tmp_path, capsys
     assert track["stopwatch"]["pairs"][0]["hand_timing_u_s"] == pytest.approx(0.10)
     for name in ("report.html", "trajectory.csv", "position_time.png", "velocity_time.png", "residuals.png"):
         assert (out / name).stat().st_size > 0, name
+    # the report reads the same names the physics results carry (no "—" where a number exists)
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert "mark ?" not in html
+    assert f"{track['transient']['mu_pa_s']:.4g} Pa·s" in html
+    pair = track["stopwatch"]["pairs"][0]
+    assert f"{pair['stopwatch_speed_m_s'] * 1e3:.5g}" in html
     with (out / "trajectory.csv").open(encoding="utf-8") as fh:
         header = next(csv.reader(fh))
     for col in ("frame", "t_s", "x_px", "y_px", "z_mm", "v_mm_s", "track", "in_plateau"):
