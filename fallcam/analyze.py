@@ -125,6 +125,8 @@ def _budget_inputs(fit: terminal.TerminalFit, rig: Rig, scale: Any, timestamps: 
         temperature_c=temperature, u_temperature_c=liquid.temperature_u_c if temperature is not None else 0.0,
         dlnmu_dT_per_K=liquid.dlnmu_dT_per_K if temperature is not None else None,
         dof={} if fit_dof is None else {"v_m_s": fit_dof},
+        apparatus_factor=rig.analysis.apparatus_factor,
+        u_apparatus_factor=rig.analysis.apparatus_factor_u,
     )
 
 
@@ -251,7 +253,7 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
         budget = uncertainty.viscosity_budget(
             _budget_inputs(fit, rig, scale, timestamps, fit.effective_points - 2),
             wall=rig.analysis.wall_model, drag=rig.analysis.drag_model)
-        mu = res.mu_pa_s
+        mu = res.mu_pa_s * (rig.analysis.apparatus_factor or 1.0)
         out.update({
             "viscosity_pa_s": mu, "viscosity_u_pa_s": budget.combined_u_rel * mu,
             "viscosity_U_pa_s": budget.expanded_U_rel * mu, "coverage_factor_k": budget.k,
@@ -260,6 +262,8 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
             "budget": budget.to_dict(),
         })
         out["corrections"] = dict(res.corrections)
+        if rig.analysis.apparatus_factor is not None:
+            out["corrections"]["apparatus_factor"] = rig.analysis.apparatus_factor
         # the temperature row describes the stated temperature; a model comparison carries u(T) itself
         u_rel_no_t = math.sqrt(max(budget.combined_u_rel**2 - sum(
             r.contribution_rel**2 for r in budget.rows if r.symbol == "temperature_K"), 0.0))

@@ -140,6 +140,9 @@ SCHEMA: dict[str, dict[str, _Key]] = {
     "analysis": {
         "wall_model": _Key("choice", "wall-factor model", choices=tuple(WALL_MODELS)),
         "drag_model": _Key("choice", "drag law", choices=tuple(DRAG_LAWS)),
+        "apparatus_factor": _num("apparatus factor from a calibration run in a reference liquid", "1",
+                                 0.5, 2.0),
+        "apparatus_factor_u": _num("standard uncertainty of the apparatus factor", "1", **_NONNEG),
     },
 }
 
@@ -546,14 +549,17 @@ class Site:
 
 @dataclass(frozen=True)
 class Analysis:
-    """Model choices: wall factor and drag law (names of :mod:`physics.drag`)."""
+    """Model choices: wall factor and drag law (names of :mod:`physics.drag`), and an apparatus
+    factor (with its standard uncertainty) from an earlier calibration run, applied to μ."""
 
     wall_model: str = "haberman-sayre"
     drag_model: str = "clift-grace-weber"
+    apparatus_factor: float | None = None
+    apparatus_factor_u: float = 0.0
 
     def to_dict(self) -> dict:
         """JSON-friendly dict."""
-        return _table_dict(self, ("wall_model", "drag_model"))
+        return _table_dict(self, ("wall_model", "drag_model", "apparatus_factor", "apparatus_factor_u"))
 
 
 @dataclass(frozen=True)
@@ -1044,7 +1050,8 @@ def load_rig(path: str | os.PathLike[str], overrides: Mapping[str, Any] | None =
     site = _resolve_site(tables.get("site", {}), src)
     at = tables.get("analysis", {})
     analysis = Analysis(at.get("wall_model", "haberman-sayre"),
-                        at.get("drag_model", "clift-grace-weber"))
+                        at.get("drag_model", "clift-grace-weber"),
+                        at.get("apparatus_factor"), at.get("apparatus_factor_u", 0.0))
     return Rig(src, liquid, ball, tube, scale_spec, camera, marks, site, analysis, scale, applied,
                warnings)
 
@@ -1245,6 +1252,8 @@ altitude_m = 12.0
 [analysis]
 wall_model = "haberman-sayre"     # "haberman-sayre" | "faxen" | "bohlin" | "francis" | "ladenburg"
 drag_model = "clift-grace-weber"  # "clift-grace-weber" | "oseen" | "stokes" | "schiller-naumann" | "proudman-pearson"
+# apparatus_factor = 1.012        # from a calibration run in a reference liquid (its summary's "calibration")
+# apparatus_factor_u = 0.004
 """
 
 

@@ -67,6 +67,7 @@ QUANTITIES: dict[str, tuple[str, str]] = {
     "temperature_K": ("liquid temperature", "K"),
     "wall_model": ("wall-factor model", "1"),
     "inertia_model": ("inertia-correction model", "1"),
+    "apparatus_factor": ("apparatus factor (calibration)", "1"),
 }
 
 
@@ -109,6 +110,9 @@ class ViscosityInputs:
     rectangular : tuple of str
         Symbols whose standard uncertainty describes a rectangular distribution (half-width
         √3·u); only the Monte Carlo sampling uses the shape.
+    apparatus_factor, u_apparatus_factor : float or None, float
+        Factor K_app from an earlier calibration run in a reference liquid
+        (:mod:`physics.calibration`) multiplying μ, and its standard uncertainty; None: none.
     """
 
     v_m_s: float
@@ -133,6 +137,8 @@ class ViscosityInputs:
     u_inertia_rel: float | None = None
     dof: Mapping[str, float] = field(default_factory=dict)
     rectangular: tuple[str, ...] = ()
+    apparatus_factor: float | None = None
+    u_apparatus_factor: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -253,6 +259,11 @@ def _nominal(inputs: ViscosityInputs, wall: str, drag: str) -> dict[str, tuple[f
         if inputs.temperature_c is None:
             raise ValueError("temperature_c = None while dlnmu_dT_per_K is given; expected the liquid temperature in °C")
         values["temperature_K"] = (float(inputs.temperature_c) + _KELVIN, inputs.u_temperature_c)
+    if inputs.apparatus_factor is not None:
+        values["apparatus_factor"] = (
+            require_positive("apparatus_factor", inputs.apparatus_factor, "a calibration factor > 0"),
+            inputs.u_apparatus_factor,
+        )
     for symbol, (_, u) in values.items():
         if not (math.isfinite(float(u)) and float(u) >= 0.0):
             raise ValueError(f"standard uncertainty of {symbol} = {u!r} is not allowed; expected a number ≥ 0")
@@ -275,6 +286,8 @@ def _model(
     if "temperature_K" in x:
         dT = np.asarray(x["temperature_K"], dtype=float) - x0["temperature_K"][0]
         mu = mu * np.exp(-float(inputs.dlnmu_dT_per_K or 0.0) * dT)
+    if "apparatus_factor" in x:
+        mu = mu * np.asarray(x["apparatus_factor"], dtype=float)
     return np.asarray(mu, dtype=float)
 
 

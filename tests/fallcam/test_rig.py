@@ -410,3 +410,19 @@ def test_bad_manifest_message(tmp_path, text, message):
 def test_missing_manifest(tmp_path):
     with pytest.raises(UsageError, match=r"nothere\.csv: manifest not found$"):
         load_manifest(tmp_path / "nothere.csv")
+
+
+def test_apparatus_factor_keys(tmp_path):
+    from fallcam.errors import UsageError
+    from fallcam.rig import load_rig, rig_template
+
+    text = rig_template().replace("# apparatus_factor = 1.012", "apparatus_factor = 1.012")
+    text = text.replace("# apparatus_factor_u = 0.004", "apparatus_factor_u = 0.004")
+    good = tmp_path / "cal.toml"
+    good.write_text(text, encoding="utf-8")
+    rig = load_rig(good)
+    assert (rig.analysis.apparatus_factor, rig.analysis.apparatus_factor_u) == (1.012, 0.004)
+    bad = tmp_path / "bad.toml"
+    bad.write_text(text.replace("apparatus_factor = 1.012", "apparatus_factor = -1.0"), encoding="utf-8")
+    with pytest.raises(UsageError, match=r"\[analysis\] apparatus_factor"):
+        load_rig(bad)

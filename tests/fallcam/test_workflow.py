@@ -123,3 +123,22 @@ def test_overlay_video_has_every_frame(tmp_path, capsys):
                                  "--out", str(out), "--overlay", "--quiet"])
     assert code == 0, err
     assert probe(out / "overlay.mp4").n_frames == probe(clip).n_frames
+
+
+def test_apparatus_factor_from_the_rig_is_applied(tmp_path, capsys):
+    """A calibration factor in [analysis] multiplies μ, shows up among the corrections and in the
+    budget; v_t is untouched."""
+    clip = SAMPLES / "wrenfield_3mm_a.mp4"
+    rig = tmp_path / "cal.toml"
+    rig.write_text(RIG.read_text(encoding="utf-8")
+                   + "\n[analysis]\napparatus_factor = 1.01\napparatus_factor_u = 0.002\n", encoding="utf-8")
+    runs = {}
+    for name, rig_path in (("plain", RIG), ("cal", rig)):
+        code, stdout, err = _run(capsys, ["analyze", str(clip), "--rig", str(rig_path), "--ball-diameter-mm",
+                                          "3.0", "--out", str(tmp_path / name), "--json", "--quiet"])
+        assert code == 0, err
+        runs[name] = json.loads(stdout)["tracks"][0]
+    assert runs["cal"]["terminal_velocity_m_s"] == runs["plain"]["terminal_velocity_m_s"]
+    assert runs["cal"]["viscosity_pa_s"] == pytest.approx(1.01 * runs["plain"]["viscosity_pa_s"], rel=1e-9)
+    assert runs["cal"]["corrections"]["apparatus_factor"] == 1.01
+    assert any(r["symbol"] == "apparatus_factor" for r in runs["cal"]["budget"]["rows"])

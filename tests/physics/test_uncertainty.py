@@ -216,3 +216,14 @@ def test_results_are_json_friendly():
     d = json.loads(json.dumps(b.to_dict()))
     assert {"quantity", "value", "unit", "standard_uncertainty", "sensitivity_rel", "contribution_rel", "share"} <= set(d["rows"][0])
     json.dumps(monte_carlo(worked_example(), n_samples=2000).to_dict())
+
+
+def test_apparatus_factor_scales_mu_and_adds_its_own_term():
+    """A calibration factor K_app = 1.02 ± 0.004 multiplies μ and adds u(K)/K in quadrature
+    (derived: the model is linear in K)."""
+    plain = viscosity_budget(worked_example(), drag="stokes")
+    cal = viscosity_budget(worked_example(apparatus_factor=1.02, u_apparatus_factor=0.004), drag="stokes")
+    assert cal.mu_pa_s == pytest.approx(1.02 * plain.mu_pa_s, rel=1e-12)
+    (row,) = [r for r in cal.rows if r.symbol == "apparatus_factor"]
+    assert row.contribution_rel == pytest.approx(0.004 / 1.02, rel=1e-6)
+    assert cal.combined_u_rel == pytest.approx(math.hypot(plain.combined_u_rel, 0.004 / 1.02), rel=1e-6)
