@@ -39,7 +39,7 @@ LOCAL_VELOCITY_WINDOW = 9
 #: size of the nominal-vs-actual rate differences seen in phone video, physics-references §9).
 TIME_BASE_U_REL = {"container": 5e-5, "nominal": 1e-3}
 #: Points given to the transient (history-force) fit; see :func:`_transient_points`.
-TRANSIENT_MAX_POINTS = 150
+TRANSIENT_MAX_POINTS = 60
 #: Lateral drift over the plateau above this fraction of the tube diameter is reported.
 LATERAL_DRIFT_WARN_FRACTION = 0.05
 
