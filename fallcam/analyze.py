@@ -28,6 +28,7 @@ from fallcam import __version__
 from fallcam.atomic import atomic_write_json, atomic_write_text, json_ready
 from fallcam.rig import Rig
 from physics import calibration, drag, fluids, marks, plateau, terminal, transient, uncertainty, viscosity
+from tracker.track import TRAJECTORY_COLUMNS
 
 Progress = Callable[[int, "int | None"], None]
 
@@ -42,10 +43,6 @@ TIME_BASE_U_REL = {"container": 5e-5, "nominal": 1e-3}
 TRANSIENT_MAX_POINTS = 60
 #: Lateral drift over the plateau above this fraction of the tube diameter is reported.
 LATERAL_DRIFT_WARN_FRACTION = 0.05
-
-TRAJECTORY_COLUMNS = ("frame", "t_s", "x_px", "y_px", "pos_u_px", "diameter_h_px", "diameter_v_px",
-                      "z_mm", "z_u_mm", "lateral_mm", "track")
-
 
 def _versions() -> dict[str, str]:
     out = {"fallcam": __version__, "python": platform.python_version()}
