@@ -315,15 +315,15 @@ def format_pm(value: float | None, u: float | None, unit: str = "", scale: float
     -------
     str
     """
+    from fallcam.report import format_measurement
+
     if value is None or not math.isfinite(value):
         return "n/a"
     v = value * scale
     suffix = f" {unit}" if unit else ""
     if u is None or not math.isfinite(u) or u <= 0:
         return f"{v:.4g}{suffix}"
-    uu = u * scale
-    decimals = max(0, 1 - math.floor(math.log10(uu)))
-    return f"{v:.{decimals}f} ± {uu:.{decimals}f}{suffix}"
+    return f"{format_measurement(v, u * scale)}{suffix}"
 
 
 def _fmt(value: Any, spec: str = ".4g", unit: str = "") -> str:
