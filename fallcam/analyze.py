@@ -61,7 +61,8 @@ def _track(clip_path: Path, rig: Rig, progress: Progress | None) -> Any:
 
     return track_clip(clip_path, rig.scale(), capture_fps=rig.camera.capture_fps,
                       readout_ms=rig.camera.readout_ms or 0.0,
-                      expect_direction=rig.expected_direction(), progress=progress)
+                      expect_direction=rig.expected_direction(),
+                      ball_diameter_mm=rig.ball.diameter_mm, progress=progress)
 
 
 def _exclusion_zones(g: pd.DataFrame, rig: Rig, frame_height_px: int,

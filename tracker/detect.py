@@ -238,7 +238,8 @@ class Background:
                 and y1 - 1 - sy <= self.height_px - 0.5)
 
     def update(self, luma: NDArray[np.uint8], shift: tuple[float, float],
-               exclude_boxes: list[tuple[int, int, int, int]], alpha: float) -> None:
+               exclude_boxes: list[tuple[int, int, int, int]], alpha: float,
+               region: tuple[int, int, int, int] | None = None) -> None:
         """Blend a frame into the model, except inside ``exclude_boxes``.
 
         Parameters
@@ -252,6 +253,8 @@ class Background:
             Scene-frame boxes not to learn (objects being tracked), px, end exclusive.
         alpha : float
             Blending weight of the new frame (0 < alpha ≤ 1).
+        region : (x0, y0, x1, y1) or None
+            Scene-frame box to which the update is limited, px, end exclusive (None: everywhere).
         """
         ix, iy = int(round(shift[0])), int(round(shift[1]))
         h, w = self.height_px, self.width_px
@@ -262,7 +265,12 @@ class Background:
             return
         src = luma[sy0 + iy: sy1 + iy, sx0 + ix: sx1 + ix]
         dst = self.image[sy0:sy1, sx0:sx1]
-        mask = np.full(src.shape, 255, np.uint8)
+        if region is None:
+            mask = np.full(src.shape, 255, np.uint8)
+        else:
+            mask = np.zeros(src.shape, np.uint8)
+            rx0, ry0, rx1, ry1 = region
+            mask[max(0, ry0 - sy0): max(0, ry1 - sy0), max(0, rx0 - sx0): max(0, rx1 - sx0)] = 255
         for bx0, by0, bx1, by1 in exclude_boxes:
             mask[max(0, by0 - sy0): max(0, by1 - sy0), max(0, bx0 - sx0): max(0, bx1 - sx0)] = 0
         cv2.accumulateWeighted(src, dst, float(alpha), mask)

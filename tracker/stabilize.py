@@ -11,7 +11,11 @@ marks, the liquid surface) are chosen once. Each frame is aligned to them by Gau
 that auto-exposure changes and mains flicker do not bias the shift. Patches with only vertical
 edges constrain x and patches with horizontal edges constrain y; solving them jointly handles
 this aperture problem. Patches that overlap a tracked object (given per frame) or that do not fit
-(a hand in front of them) are left out. Each frame starts from the whole-pixel shift that
+(a hand in front of them) are left out. Patches are never placed on something in the reference
+frame that looks like the sphere itself (a compact blob of the expected diameter): a ball resting
+in view when the clip starts would otherwise become the "static" scene, and the registration would
+follow it as it begins to move — on a plain background it can be the only texture there is. Each
+frame starts from the whole-pixel shift that
 maximises the summed correlation of all patches near the previous shift, so a tap that jumps
 the view by several pixels, or a ruler whose ticks repeat, cannot lead the fine alignment into a
 wrong minimum.
@@ -59,6 +63,13 @@ _JUMP_GAIN = 0.75
 _JUMP_PENALTY = 0.01
 
 
+def _small_median(a: NDArray[np.float64]) -> float:
+    """numpy.median of a handful of values, without its per-call overhead (called ~5× a frame)."""
+    v = sorted(a.tolist())
+    n = len(v)
+    return 0.5 * (v[(n - 1) // 2] + v[n // 2]) if n else float("nan")
+
+
 @dataclass(frozen=True)
 class Registration:
     """Shift of one frame relative to the scene.
@@ -96,6 +107,10 @@ class Stabilizer:
     max_shift_px : float
         Largest camera motion expected; patches keep this far from the frame border and
         jumps up to this size are recovered, px.
+    avoid_diameter_px : float or None
+        Expected diameter of the sphere in the picture, px: compact dark or bright blobs of about
+        this size in the reference frame (a ball at rest in view) get no patch. None: no such
+        check.
 
     Attributes
     ----------
@@ -104,15 +119,18 @@ class Stabilizer:
     weak_axes : list of str
         "x" and/or "y" when the scene has too little structure to register that direction
         (structure in one patch only does not count); such an axis is held at zero shift.
+    avoided : list of (x0, y0, x1, y1)
+        Boxes of sphere-like blobs in the reference frame that got no patch, px.
     """
 
     def __init__(self, reference: NDArray[np.uint8], *, patch_px: int = 32, max_patches: int = 8,
-                 max_shift_px: float = 30.0) -> None:
+                 max_shift_px: float = 30.0, avoid_diameter_px: float | None = None) -> None:
         if reference.ndim != 2:
             raise ValueError(f"reference: expected a 2-D grey image, got shape {reference.shape}")
         self.patch_px = int(patch_px)
         self.max_shift_px = float(max_shift_px)
         self._ref_image = reference.astype(np.float32)
+        self.avoided = _sphere_like_boxes(reference, avoid_diameter_px) if avoid_diameter_px else []
         # patches are chosen on the picture they will be matched on: the smoothing removes
         # gratings too fine to register (a mm ruler at 2 px/mm)
         self.centres = np.round(self._choose_patches(
@@ -143,6 +161,10 @@ class Stabilizer:
         valid = np.zeros(small.shape, bool)
         if small.shape[0] > 2 * margin and small.shape[1] > 2 * margin:
             valid[margin:-margin, margin:-margin] = True
+        half = p / 2.0 + 2.0
+        for bx0, by0, bx1, by1 in self.avoided:  # no patch centre whose patch touches the box
+            valid[max(0, int((by0 - half) // f)): max(0, int(np.ceil((by1 + half) / f))),
+                  max(0, int((bx0 - half) // f)): max(0, int(np.ceil((bx1 + half) / f)))] = False
         sep = p / f
         chosen: list[tuple[float, float]] = []
         per_axis = max(1, max_patches // 2)
@@ -218,8 +240,8 @@ class Stabilizer:
         self._red = a - self._b @ self._ci @ np.swapaxes(self._b, 1, 2)   # Schur complement
         self._ref_std = np.maximum(ref.reshape(n, -1).std(axis=1), 1.0) if n else np.zeros(0)
         # rows: ref, 1, gx, gy — one batched product gives every sum an iteration needs
-        self._basis = np.stack([ref.reshape(n, -1), np.ones((n, p * p), np.float32),
-                                gx.reshape(n, -1), gy.reshape(n, -1)], axis=1)
+        self._basis = np.stack([ref.reshape(n, p * p), np.ones((n, p * p), np.float32),
+                                gx.reshape(n, p * p), gy.reshape(n, p * p)], axis=1)
         # An axis is registered only if more than one patch informs it: structure along it in a
         # single patch (the liquid surface, where the sphere enters) can be swept away by what
         # passes through that patch. A weak axis is held at zero shift.
@@ -357,8 +379,8 @@ class Stabilizer:
         Registration
             The shift (the previous one is kept, with ``ok=False``, when nothing registers).
         """
-        if len(self.centres) == 0:
-            return Registration(0.0, 0.0, False, 0, float("nan"))
+        if len(self.centres) == 0:  # no structure at all: both axes weak, held at zero
+            return Registration(0.0, 0.0, True, 0, float("nan"))
         half = self.patch_px / 2.0 + 2.0
         use = []
         for i, (cx, cy) in enumerate(self.centres):
@@ -372,20 +394,20 @@ class Stabilizer:
         if idx.size == 0:
             return Registration(float(self._shift[0]), float(self._shift[1]), False, 0, float("nan"))
         shift, resid = self._gauss_newton(luma, self._shift.copy(), idx)
-        typical = max(self._typical_resid if np.isfinite(self._typical_resid) else float(np.median(resid)),
+        typical = max(self._typical_resid if np.isfinite(self._typical_resid) else _small_median(resid),
                       _RESID_FLOOR)
         # a raised residual means the view jumped (a tap) or fell into a wrong minimum (repeating
         # ticks): search whole-pixel shifts near the previous one; a jump found there (or no
         # fix) is checked by a search over the whole range, where a mark or the liquid surface
         # decides between repeated ticks
-        if float(np.median(resid)) > _RAISED_FACTOR * typical:
-            med = float(np.median(resid))
+        if _small_median(resid) > _RAISED_FACTOR * typical:
+            med = _small_median(resid)
             found = self._coarse(luma, idx, self._shift, _NEAR_SEARCH_PX)
             if found is not None:
                 shift2, resid2 = self._gauss_newton(luma, found[0], idx)
-                if float(np.median(resid2)) < _JUMP_GAIN * med:
+                if _small_median(resid2) < _JUMP_GAIN * med:
                     shift, resid = shift2, resid2
-            if float(np.median(resid)) > _RAISED_FACTOR * typical or \
+            if _small_median(resid) > _RAISED_FACTOR * typical or \
                     float(np.abs(shift - self._shift).max()) > 2.0:
                 found = self._coarse(luma, idx, self._shift, self.max_shift_px)
                 if found is not None and float(np.abs(found[0] - shift).max()) > 1.0:
@@ -395,7 +417,7 @@ class Stabilizer:
         # drop patches that do not fit (a hand in front, a passing object) and solve again; a
         # patch that never fits any more (the reference frame held a passing object there) is
         # retired
-        med = float(np.median(resid))
+        med = _small_median(resid)
         good = resid <= max(_OUTLIER_FACTOR * med, 2.0 * typical)
         self._bad_count[idx[~good]] += 1
         self._bad_count[idx[good]] = 0
@@ -405,7 +427,7 @@ class Stabilizer:
         retire = self._bad_count >= _RETIRE_AFTER
         if retire.any() and (~retire & self._active).sum() >= 2:
             self._active &= ~retire
-        med = float(np.median(resid))
+        med = _small_median(resid)
         ok = bool(np.isfinite(shift).all() and med < _LOST_FACTOR * typical
                   and float(np.abs(shift).max()) <= 2 * self.max_shift_px)
         if ok:
@@ -416,3 +438,55 @@ class Stabilizer:
         self._typical_resid = med_c if not np.isfinite(self._typical_resid) else (
             0.9 * self._typical_resid + 0.1 * med_c)
         return Registration(float(self._shift[0]), float(self._shift[1]), ok, int(idx.size), med)
+
+
+# Sphere-like blobs in the reference frame: extent within this range of the expected diameter
+# (the tube magnifies sideways by up to ~1.35; defocus adds a little) and this much of their
+# bounding box filled (a disc fills π/4 ≈ 0.79, a square 1), with at most this fraction of a
+# ring around it above the contrast level.
+_BLOB_SIZE_RANGE = (0.6, 1.7)
+_BLOB_FILL_RANGE = (0.6, 0.92)
+_BLOB_RING_FILL = 0.05
+# Contrast a blob needs, in units of the robust spread of the top-hat image, and at least (DN).
+_BLOB_SIGMA = 6.0
+_BLOB_MIN_DN = 8.0
+
+
+def _sphere_like_boxes(reference: NDArray[np.uint8], diameter_px: float
+                       ) -> list[tuple[float, float, float, float]]:
+    """Bounding boxes (x0, y0, x1, y1, px) of compact blobs of about ``diameter_px``.
+
+    A morphological top-hat with a disc a little larger than the sphere keeps dark (and bright)
+    structure narrower than the disc; of its connected pieces, those as tall as they are wide, of
+    the sphere's size and filling their box like a disc, are sphere-like. Lines (tube walls, ruler
+    ticks, marks) are long in one direction and are not. Computed on a copy scaled so that the
+    sphere is ~12 px across.
+    """
+    if not (np.isfinite(diameter_px) and diameter_px > 0):
+        return []
+    h, w = reference.shape
+    f = max(1.0, diameter_px / 12.0)
+    small = cv2.resize(reference, (max(1, int(round(w / f))), max(1, int(round(h / f)))),
+                       interpolation=cv2.INTER_AREA) if f > 1.0 else reference
+    d = diameter_px / f
+    k = 2 * int(np.ceil(_BLOB_SIZE_RANGE[1] * d / 2.0)) + 1
+    disc = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k))
+    boxes = []
+    for op in (cv2.MORPH_BLACKHAT, cv2.MORPH_TOPHAT):       # dark, then bright blobs
+        hat = cv2.morphologyEx(small, op, disc, borderType=cv2.BORDER_REPLICATE)
+        spread = 1.4826 * float(np.median(np.abs(hat.astype(np.float32) - float(np.median(hat)))))
+        level = max(_BLOB_MIN_DN, _BLOB_SIGMA * spread)
+        mask = (hat > level).astype(np.uint8)
+        n, _, stats, _ = cv2.connectedComponentsWithStats(mask, connectivity=8)
+        lo, hi = _BLOB_SIZE_RANGE[0] * d, _BLOB_SIZE_RANGE[1] * d
+        for x, y, bw, bh, area in stats[1:]:
+            if not (lo <= bw <= hi and lo <= bh <= hi
+                    and _BLOB_FILL_RANGE[0] * bw * bh <= area <= _BLOB_FILL_RANGE[1] * bw * bh):
+                continue
+            # alone on the background: a ring half a diameter wide around it is nearly empty
+            # (a tick of a ruler or a piece of a textured surface has neighbours)
+            r = int(np.ceil(0.5 * d))
+            ring = mask[max(0, y - r): y + bh + r, max(0, x - r): x + bw + r]
+            if float(ring.sum()) - area <= _BLOB_RING_FILL * (ring.size - bw * bh):
+                boxes.append((x * f, y * f, (x + bw) * f, (y + bh) * f))
+    return boxes

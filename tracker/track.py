@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import math
 import pathlib
+import statistics
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any, Protocol
@@ -217,11 +218,11 @@ class _Track:
             self._levels.append(m.level_dn)
             del self._levels[:-50]
             if len(self._levels) >= 3:
-                self._level = float(np.median(self._levels))
+                self._level = float(statistics.median(self._levels))
         self._sizes.append((m.diameter_h_px, m.diameter_v_px, m.blur_px))
         del self._sizes[:-50]
-        med = np.median(np.array(self._sizes), axis=0)
-        self._size = (float(med[0]), float(med[1]), float(med[2]))
+        h, v, b = zip(*self._sizes)
+        self._size = (float(statistics.median(h)), float(statistics.median(v)), float(statistics.median(b)))
         self._velocity = self._fit_velocity()
 
     @property
@@ -293,8 +294,12 @@ class _Track:
     def still(self) -> bool:
         """True when the object has not moved (speed below _STILL_SPEED_PX_S) for _STILL_S."""
         last = self.points[-1]
-        recent = [p for p in self.points if p.t_frame >= last.t_frame - _STILL_S]
-        if recent[0].t_frame > last.t_frame - 0.9 * _STILL_S or len(recent) < 5:
+        recent = []
+        for p in reversed(self.points):  # the last _STILL_S seconds, newest first
+            if p.t_frame < last.t_frame - _STILL_S:
+                break
+            recent.append(p)
+        if recent[-1].t_frame > last.t_frame - 0.9 * _STILL_S or len(recent) < 5:
             return False
         span = max(math.hypot(p.x - last.x, p.y - last.y) for p in recent)
         return span < _STILL_SPEED_PX_S * _STILL_S
@@ -441,10 +446,26 @@ def _empirical_noise(t: NDArray[np.float64], x: NDArray[np.float64], y: NDArray[
     return float(np.sqrt(np.mean(core ** 2)))
 
 
+# Mean |frame − background| (DN) over a first-frame blob's box above which it has moved off.
+_IMPRINT_CHANGE_DN = 3.0
+
+
+def _overlap(a: tuple[float, float, float, float], b: tuple[float, float, float, float]) -> bool:
+    return a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]
+
+
+def _window(p: _Point) -> tuple[float, float, float, float]:
+    """Scene-frame box of the window a point was measured in (detect.measure's margin)."""
+    hx, hy = p.m.diameter_h_px / 2.0, (p.m.diameter_v_px + p.m.blur_px) / 2.0
+    margin = 3.0 + 0.35 * max(hx, hy) + 1.0
+    return (p.x - hx - margin, p.y - hy - margin, p.x + hx + margin, p.y + hy + margin)
+
+
 # ------------------------------------------------------------------------------------ the loop
 class _Loop:
-    def __init__(self, info: ClipInfo) -> None:
+    def __init__(self, info: ClipInfo, ball_px: float | None = None) -> None:
         self.info = info
+        self.ball_px = ball_px
         self.bg: Background | None = None
         self.stab: Stabilizer | None = None
         self.active: list[_Track] = []
@@ -454,11 +475,16 @@ class _Loop:
         self.n_unregistered = 0
         self.max_shift = 0.0
         self.n_used = 0
+        self.imprints: list[tuple[int, int, int, int]] = []   # scene boxes, not yet healed
 
     def step(self, index: int, t: float, luma: NDArray[np.uint8]) -> None:
         if self.bg is None:
             self.bg = Background(luma)
-            self.stab = Stabilizer(luma)
+            self.stab = Stabilizer(luma, avoid_diameter_px=self.ball_px)
+            # a sphere-like blob in the first frame is in the background model too: when it moves
+            # off, it leaves its imprint there, which biases the centre until healed
+            self.imprints = [(int(b[0]), int(b[1]), int(math.ceil(b[2])), int(math.ceil(b[3])))
+                             for b in self.stab.avoided]
             return
         self.n_used += 1
         excl = [tr.box(t, self.shift) for tr in self.active]
@@ -469,6 +495,8 @@ class _Loop:
         self.max_shift = max(self.max_shift, abs(reg.dx_px), abs(reg.dy_px))
         for tr in list(self.active):
             self._follow(tr, index, t, luma)
+        if self.imprints:
+            self._heal(t, luma)
         busy = any(tr.confirmed for tr in self.active)
         if self.n_used % (_ACQUIRE_EVERY if busy else _ACQUIRE_IDLE_EVERY) == 1:
             self._acquire(index, t, luma)
@@ -478,6 +506,41 @@ class _Loop:
                 x0, y0, x1, y1 = tr.box(t, (0.0, 0.0), pad=4.0)
                 boxes.append((int(x0), int(y0), int(math.ceil(x1)), int(math.ceil(y1))))
             self.bg.update(luma, self.shift, boxes, _BG_ALPHA)
+
+    def _heal(self, t: float, luma: NDArray[np.uint8]) -> None:
+        """Replace the background under a first-frame blob once it has moved off, and drop the
+        points measured with their window over its imprint.
+
+        The blob has moved off when a confirmed passage started over its box, no followed
+        object's window covers the box any more, and the frame there differs from the model.
+        """
+        windows = [tr.box(t, (0.0, 0.0), pad=4.0) for tr in self.active]
+        for blob in list(self.imprints):
+            origin = [_window(tr.points[0]) for tr in self.active + self.done
+                      if tr.confirmed and _overlap(_window(tr.points[0]), blob)]
+            if not origin:
+                continue
+            # until it was found, the moving blob was learnt into the model along its way too
+            box = (min(blob[0], *(int(w[0]) for w in origin)), min(blob[1], *(int(w[1]) for w in origin)),
+                   max(blob[2], *(int(math.ceil(w[2])) for w in origin)),
+                   max(blob[3], *(int(math.ceil(w[3])) for w in origin)))
+            if any(_overlap(w, box) for w in windows):
+                continue
+            x0, y0, x1, y1 = box
+            ix, iy = int(round(self.shift[0])), int(round(self.shift[1]))
+            h, w = luma.shape
+            if x0 + ix < 0 or y0 + iy < 0 or x1 + ix > w or y1 + iy > h:
+                continue
+            now = luma[y0 + iy:y1 + iy, x0 + ix:x1 + ix].astype(np.float32)
+            if float(np.mean(np.abs(now - self.bg.image[y0:y1, x0:x1]))) < _IMPRINT_CHANGE_DN:
+                continue
+            frame_boxes = [(int(a), int(b), int(math.ceil(c)), int(math.ceil(d)))
+                           for a, b, c, d in windows]
+            self.bg.update(luma, self.shift, frame_boxes, 1.0, region=box)
+            self.imprints.remove(blob)
+            for tr in self.active + self.done:
+                keep = [p for p in tr.points[:-1] if not _overlap(_window(p), box)]
+                tr.points = keep + tr.points[-1:]
 
     def _end(self, tr: _Track, reason: str) -> None:
         tr.end_reason = reason
@@ -576,6 +639,7 @@ class _Loop:
 # ------------------------------------------------------------------------------------ public API
 def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float | None = None,
                readout_ms: float = 0.0, expect_direction: str | None = None,
+               ball_diameter_mm: float | None = None,
                progress: Callable[[int, int | None], None] | None = None) -> TrackResult:
     """Track the sphere(s) through a clip and return the trajectory in mm and s.
 
@@ -593,6 +657,9 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
         Direction of motion expected from the densities ("down" for a ball denser than the
         liquid). Passages in the other direction (bubbles) are dropped when one in the expected
         direction exists; if none does, the other way is kept with a warning.
+    ball_diameter_mm : float, optional
+        Diameter of the sphere, mm. With it, the camera-shake registration places no patch on a
+        sphere-sized blob of the first frame (a ball at rest in view when the clip starts).
     progress : callable, optional
         Called as ``progress(n_frames_done, n_frames_total)`` after each frame (total may be
         None when unknown).
@@ -616,8 +683,11 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
         raise ValueError(f"expect_direction = {expect_direction!r}: expected 'down', 'up' or None")
     if not (hasattr(scale, "to_mm") and hasattr(scale, "px_per_mm")):
         raise ValueError(f"scale = {scale!r}: expected a tracker.scale.Scale (to_mm and px_per_mm)")
+    if ball_diameter_mm is not None and not (isinstance(ball_diameter_mm, (int, float))
+                                             and math.isfinite(ball_diameter_mm) and ball_diameter_mm > 0):
+        raise ValueError(f"ball_diameter_mm = {ball_diameter_mm!r}: expected a diameter > 0 in mm")
     info = probe(path, capture_fps=capture_fps)
-    loop = _Loop(info)
+    loop = _Loop(info, None if ball_diameter_mm is None else ball_diameter_mm * float(scale.px_per_mm))
     n_frames = 0
     n_dup = 0
     total = info.n_frames if info.n_frames > 0 else None

@@ -105,6 +105,31 @@ def test_scene_without_horizontal_structure_is_weak_in_y():
     assert Stabilizer(_scene(0.0, 0.0)).weak_axes == []
 
 
+def test_no_patch_on_a_sphere_resting_in_the_reference():
+    """A ball (14 px) lying in the first frame is not static scene: with its expected diameter
+    the patch choice avoids it, and still finds the walls, ruler and marks."""
+    blob = (250.0, 200.0)
+    plain = Stabilizer(_scene(0.0, 0.0, blob=blob))
+    on_ball = np.hypot(plain.centres[:, 0] - blob[0], plain.centres[:, 1] - blob[1]) < 16 + 7
+    assert on_ball.any()  # the ball is the most textured spot: without the hint it gets a patch
+    st = Stabilizer(_scene(0.0, 0.0, blob=blob), avoid_diameter_px=14.0)
+    assert len(st.avoided) == 1
+    x0, y0, x1, y1 = st.avoided[0]
+    assert x0 < blob[0] < x1 and y0 < blob[1] < y1 and 10 <= x1 - x0 <= 20
+    assert np.all(np.hypot(st.centres[:, 0] - blob[0], st.centres[:, 1] - blob[1]) > 16 + 7)
+    assert st.weak_axes == [] and len(st.centres) >= 4
+    # nothing but the ball: no patch at all, both axes held at zero shift
+    bare = np.full((H, W), 180, np.uint8)
+    yy, xx = np.mgrid[0:H, 0:W]
+    bare[np.hypot(xx - blob[0], yy - blob[1]) < 7] = 30
+    st = Stabilizer(bare, avoid_diameter_px=14.0)
+    assert st.weak_axes == ["x", "y"]
+    moved = np.full((H, W), 180, np.uint8)
+    moved[np.hypot(xx - blob[0], yy - blob[1] + 3.0) < 7] = 30   # the ball rose by 3 px
+    reg = st.register(moved)
+    assert (reg.dx_px, reg.dy_px) == (0.0, 0.0)
+
+
 def test_bad_reference():
     with pytest.raises(ValueError, match=r"reference: expected a 2-D grey image, got shape \(8, 8, 3\)"):
         Stabilizer(np.zeros((8, 8, 3), np.uint8))
