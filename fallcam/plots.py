@@ -49,6 +49,22 @@ _VELOCITY_BINS = 12  # block means on the plateau: few enough to see a drift thr
 
 _REQUIRED_COLUMNS = ("t_s", "z_mm", "track")
 
+# Fixed layout, inches: left (tick labels and a 10 pt axis label), right (no margin labels), top
+# (a 12 pt title), bottom (tick labels and the axis label), one 8 pt legend row, the gap between
+# two stacked panels (the upper one's axis label, the lower one's title).
+_LEFT_IN = 0.85
+_RIGHT_IN = 0.25
+_TOP_IN = 0.42
+_BOTTOM_IN = 0.55
+_LEGEND_ROW_IN = 0.165
+_LEGEND_PAD_IN = 0.12
+_PANEL_GAP_IN = 0.85
+_SHARED_X_GAP_IN = 0.45    # stacked panels sharing the x axis: only the lower one's title
+_LEGEND_HEADROOM = 1.45    # series plot: y range over the largest speed (+2u), room for the legend
+# Width of one 8 pt character (DejaVu Sans, average) and the offset of the margin labels, inches.
+_CHAR_IN_8PT = 0.068
+_MARGIN_LABEL_PAD_IN = 0.4
+
 
 def position_time(traj: pd.DataFrame, summary: Mapping[str, Any], path: str | os.PathLike) -> Path:
     """Plot the sphere's depth against time, with plateau, timing marks and excluded zones.
@@ -147,7 +163,7 @@ def velocity_time(traj: pd.DataFrame, summary: Mapping[str, Any], path: str | os
         If the trajectory has no ``v_mm_s`` column.
     """
     data = _checked_trajectory(traj, extra=("v_mm_s",))
-    fig = Figure(figsize=(_FIGSIZE_IN[0], _FIGSIZE_IN[1] * 1.35), dpi=_DPI, layout="constrained")
+    fig = Figure(figsize=(_FIGSIZE_IN[0], _FIGSIZE_IN[1] * 1.35), dpi=_DPI)
     FigureCanvasAgg(fig)
     ax_full, ax_zoom = fig.subplots(2, 1, height_ratios=(3, 2))
     by_id = _tracks_by_id(summary)
@@ -371,7 +387,7 @@ def series_plot(table: Any, fit: Any, path: str | os.PathLike, *,
     u_v_mm_s = 1000.0 * u_v_m_s * to_corrected
     d2_mm2, u_d2_mm2 = d_mm**2, 2.0 * d_mm * u_d_mm
 
-    fig = Figure(figsize=(_FIGSIZE_IN[0], _FIGSIZE_IN[1] * 1.3), dpi=_DPI, layout="constrained")
+    fig = Figure(figsize=(_FIGSIZE_IN[0], _FIGSIZE_IN[1] * 1.3), dpi=_DPI)
     FigureCanvasAgg(fig)
     ax, ax_res = fig.subplots(2, 1, sharex=True, height_ratios=(3, 1.4))
     span = np.linspace(0.0, 1.08 * float(d2_mm2.max()), 50)
@@ -394,9 +410,11 @@ def series_plot(table: Any, fit: Any, path: str | os.PathLike, *,
                 elinewidth=1.0, capsize=3, label="balls: mean of the repeats (error bars ±2u)")
     for r, x, y in zip(rows, d2_mm2, v_mm_s, strict=True):
         label = f"{r.get('ball', '')} (n = {r['n']})" if "n" in r else str(r.get("ball", ""))
-        right = x > 0.75 * span[-1]  # below the line (empty, away from the legend): left of the largest balls, right otherwise
-        ax.annotate(label, (x, y), xytext=(-10, -14) if right else (8, -12), textcoords="offset points",
-                    fontsize=8, ha="right" if right else "left")
+        # off the rising line: below and to the right, or, near the right edge, above and to the
+        # left (the legend keeps to the headroom above the largest ball)
+        right = x > 0.75 * span[-1]
+        ax.annotate(label, (x, y), xytext=(-10, 8) if right else (8, -12), textcoords="offset points",
+                    fontsize=8, ha="right" if right else "left", va="bottom" if right else "baseline")
     power = fit_d.get("power_law")
     if power:
         power = _as_dict(power)
@@ -414,7 +432,8 @@ def series_plot(table: Any, fit: Any, path: str | os.PathLike, *,
                     ha="center", va="center")
     walls = "walls and inertia" if fit_d.get("velocities_wall_corrected", True) else "inertia"
     ax.set_xlim(0.0, span[-1])
-    ax.set_ylim(bottom=0.0)
+    # headroom above the largest ball: the legend sits there, clear of the points and labels
+    ax.set_ylim(0.0, _LEGEND_HEADROOM * float(np.max(v_mm_s + 2.0 * u_v_mm_s)))
     ax.set_ylabel(f"terminal velocity, {walls} corrected (mm/s)")
     ax.set_title("Terminal velocity against squared ball diameter")
     ax.grid(True, color="0.85", linewidth=0.6)
@@ -423,6 +442,7 @@ def series_plot(table: Any, fit: Any, path: str | os.PathLike, *,
     ax_res.set_ylabel("v − fit (mm/s)")
     ax_res.set_title("Residuals from the fit through the origin", fontsize=10)
     ax_res.grid(True, color="0.85", linewidth=0.6)
+    _arrange(fig, (ax, ax_res), legend_rows=0, gap_in=_SHARED_X_GAP_IN)
     return _save(fig, path)
 
 
@@ -430,7 +450,7 @@ def series_plot(table: Any, fit: Any, path: str | os.PathLike, *,
 
 
 def _new_axes() -> tuple[Figure, Any]:
-    fig = Figure(figsize=_FIGSIZE_IN, dpi=_DPI, layout="constrained")
+    fig = Figure(figsize=_FIGSIZE_IN, dpi=_DPI)
     FigureCanvasAgg(fig)
     return fig, fig.add_subplot()
 
@@ -554,6 +574,8 @@ def _margin_labels(ax: Any, labels: Sequence[tuple[float, str, str]]) -> None:
         for i in range(len(placed) - 2, -1, -1):  # downward pass after the shift
             placed[i] = min(placed[i], placed[i + 1] - _LABEL_GAP)
     anchor = blended_transform_factory(ax.transAxes, ax.transData)
+    ax.figure._fallcam_right_in = _MARGIN_LABEL_PAD_IN + _CHAR_IN_8PT * max(
+        len(line) for _, text, _ in labels for line in text.splitlines())
     for (y, text, colour), f_want, f_put in zip(order, want, placed, strict=True):
         moved = abs(f_put - f_want) > 0.01
         ax.annotate(text, xy=(1.0, y), xycoords=anchor, xytext=(1.03, f_put),
@@ -570,9 +592,28 @@ def _legend_below(fig: Figure, *axes: Any, ncols: int = 2) -> None:
         h, lab = ax.get_legend_handles_labels()
         handles.extend(h)
         labels.extend(lab)
+    rows = 0
     if handles:
-        fig.legend(handles, labels, loc="outside lower center", ncols=ncols, fontsize=8,
-                   frameon=False)
+        rows = math.ceil(len(handles) / ncols)
+        fig.legend(handles, labels, loc="lower center", bbox_to_anchor=(0.5, 0.0), ncols=ncols,
+                   fontsize=8, frameon=False, borderaxespad=0.3)
+    _arrange(fig, axes, legend_rows=rows)
+
+
+def _arrange(fig: Figure, axes: Sequence[Any], *, legend_rows: int,
+             gap_in: float = _PANEL_GAP_IN) -> None:
+    """Fixed margins (inches) around the axes: room for tick labels, axis labels, titles, the
+    legend rows below and any labels in the right margin. Cheaper than a layout engine (which
+    measures every text of the figure before the real drawing) and the same on every run."""
+    w_in, h_in = fig.get_size_inches()
+    right_in = getattr(fig, "_fallcam_right_in", _RIGHT_IN)
+    bottom_in = _BOTTOM_IN + legend_rows * _LEGEND_ROW_IN + (_LEGEND_PAD_IN if legend_rows else 0.0)
+    shown = [ax for ax in axes if ax.axison]
+    gaps_in = gap_in * max(len(axes) - 1, 0)
+    axes_h_in = h_in - _TOP_IN - bottom_in - gaps_in
+    fig.subplots_adjust(left=_LEFT_IN / w_in, right=1.0 - right_in / w_in, top=1.0 - _TOP_IN / h_in,
+                        bottom=bottom_in / h_in,
+                        hspace=gap_in / (axes_h_in / max(len(axes), 1)) if shown else 0.2)
 
 
 def _robust_ylim(ax: Any, values: np.ndarray) -> None:

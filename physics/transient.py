@@ -61,6 +61,8 @@ _DEGENERATE_STEP = 1e-3  # relative offset of β̃ used there (error O(step²) =
 #: many of the best of them are refined by least squares.
 _RELEASE_GRID = 11
 _REFINED_STARTS = 3
+# Earliest release time allowed, in spans of the fitted points before the first one.
+_RELEASE_BOUND_SPANS = 1.0
 _LABEL = "transient estimate"
 
 
@@ -479,9 +481,15 @@ def fit_transient(
         x0 = np.array([t0, z0, math.log(mu0)])
         starts.append((float(np.sum(residual(x0) ** 2)), x0))
     # refine only the most promising release times: each refinement costs hundreds of model runs
+    # a release long before the first point is not identifiable (the trajectory is a straight
+    # line; with the history force's slow tail the optimiser would wander hundreds of seconds
+    # back): it is bounded to one span before the first point
+    lower = np.array([t[0] - _RELEASE_BOUND_SPANS * span, -np.inf, -np.inf])
+    upper = np.array([t[-1], np.inf, np.inf])
     best: Any = None
     for _, x0 in sorted(starts, key=lambda s: s[0])[:_REFINED_STARTS]:
-        sol = least_squares(residual, x0, x_scale="jac", method="trf")
+        sol = least_squares(residual, np.clip(x0, lower, upper), x_scale="jac", method="trf",
+                            bounds=(lower, upper))
         if best is None or sol.cost < best.cost:
             best = sol
     params = best.x

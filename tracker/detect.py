@@ -72,6 +72,10 @@ _GATE_SIGMA = 2.0
 # Connectivity threshold (σ and fraction of the peak contrast) that defines the object's extent.
 _LINK_SIGMA = 3.5
 _LINK_FRACTION = 0.15
+# Local gain (frame / background on the ring around the object): background darker than this
+# (DN) does not enter the ratio, and the gain is not taken below _GAIN_MIN.
+_GAIN_MIN_BG_DN = 8.0
+_GAIN_MIN = 0.05
 # Smallest contrast (grey levels) an object must reach to be measured at all.
 _MIN_CONTRAST_DN = 4.0
 # Below this fraction of the usual contrast the object cannot be seen against the scene
@@ -470,7 +474,11 @@ def measure(luma: NDArray[np.uint8], background: Background, shift: tuple[float,
     if n_ring < 16:
         return None, "edge"
     bg_ring = bgp[ring]
-    gain = _median(img[ring] / np.maximum(bg_ring, 1.0))
+    # the gain is a ratio: only background bright enough to carry one counts (a dark-field
+    # scene can be black, 0 DN, around a bright ball)
+    lit = bg_ring >= _GAIN_MIN_BG_DN
+    gain = _median(img[ring][lit] / bg_ring[lit]) if int(lit.sum()) >= 16 else 1.0
+    gain = max(gain, _GAIN_MIN)
     gbg = gain * bgp
     d = (img - gbg) if polarity == "bright" else (gbg - img)
     ring_d = d[ring]
