@@ -304,7 +304,10 @@ class Stabilizer:
                       idx: NDArray[np.intp]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         """Iterate the shared translation; returns (shift, per-patch normalised residual)."""
         ci, bmat, red, basis = self._ci[idx], self._b[idx], self._red[idx], self._basis[idx]
-        reg = 1e-6 * max(float(np.trace(red.sum(axis=0))), 1.0) * np.eye(2)
+        # Tikhonov term (keeps the 2×2 solve regular) plus the hold on weak axes
+        red_sum = red.sum(axis=0)
+        reg = 1e-6 * max(red_sum[0, 0] + red_sum[1, 1], 1.0)
+        hold = (reg + self._fixed[0] * 1e12, reg + self._fixed[1] * 1e12)
         stack, origin = self._smoothed_regions(luma, shift, idx)
         for it in range(_MAX_ITER + 1):
             if float(np.abs(shift - origin - 0.5).max()) > _SMOOTH_BORDER - 4:
@@ -318,8 +321,11 @@ class Stabilizer:
                 break
             red_rhs = np.einsum("nij,nj->ni", bmat, photo) - sums[:, 2:]
             gains = np.maximum(photo[:, 0], 1e-3)
-            lhs = np.einsum("n,nij->ij", gains ** 2, red) + reg + np.diag(self._fixed * 1e12)
-            step = np.linalg.solve(lhs, gains @ red_rhs)
+            (a, b), (c, d) = np.einsum("n,nij->ij", gains ** 2, red).tolist()
+            a, d = a + hold[0], d + hold[1]
+            r0, r1 = (gains @ red_rhs).tolist()
+            det = a * d - b * c                     # 2×2 solve by Cramer's rule (a numpy call costs more)
+            step = np.array([(d * r0 - b * r1) / det, (a * r1 - c * r0) / det])
             shift = shift + step
             if float(np.abs(step).max()) < _STEP_TOL_PX:
                 break       # the residual of this sample is that of the final shift to ~1 %
