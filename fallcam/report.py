@@ -320,6 +320,9 @@ def _corrections_table(corrections: Mapping[str, Any]) -> str:
             "<th>size (factor − 1)</th></tr>" + "".join(rows) + "</table>")
 
 
+_KELVIN = 273.15
+
+
 def _budget_table(budget: Mapping[str, Any]) -> str:
     rows = list(budget.get("rows") or [])
     if not rows:
@@ -340,11 +343,20 @@ def _budget_table(budget: Mapping[str, Any]) -> str:
         bar = (f"<span class=\"bartrack\"><span class=\"bar\" style=\"width:{width:.1f}%\">"
                "</span></span>")
         row_class = ' class="dominant"' if is_dom else ""
+        value, unit = _fmt(row.get('value'), '.6g'), _e(row.get('unit'))
+        sensitivity = _fmt(row.get('sensitivity_rel'), '+.4f')
+        mu, t_k, c_t = (finite_or_none(budget.get("mu_pa_s")), finite_or_none(row.get("value")),
+                        finite_or_none(row.get("sensitivity")))
+        if row.get("symbol") == "temperature_K" and mu and t_k is not None and c_t is not None:
+            # a temperature is read in °C and its effect per kelvin (T/μ·∂μ/∂T with T in K, ~ −26
+            # for glycerol, is correct but tells a reader nothing)
+            value, unit = f"{t_k - _KELVIN:.2f}", "°C"
+            sensitivity = f"{100.0 * c_t / mu:+.2f} % per K"
         out.append(
             f"<tr{row_class}><td>{name}</td>"
-            f"<td class=\"num\">{_fmt(row.get('value'), '.6g')}</td><td>{_e(row.get('unit'))}</td>"
+            f"<td class=\"num\">{value}</td><td>{unit}</td>"
             f"<td class=\"num\">{_fmt(row.get('standard_uncertainty'), '.3g')}</td>"
-            f"<td class=\"num\">{_fmt(row.get('sensitivity_rel'), '+.4f')}</td>"
+            f"<td class=\"num\">{sensitivity}</td>"
             f"<td class=\"num\">{_pct(row.get('contribution_rel'), '.3f')}</td>"
             f"<td class=\"num\">{bar} {100.0 * share:.1f} %</td></tr>")
     k = finite_or_none(budget.get("k")) or 2.0

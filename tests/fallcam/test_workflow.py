@@ -8,6 +8,7 @@ from __future__ import annotations
 import csv
 import json
 import pathlib
+import re
 
 import pytest
 
@@ -55,6 +56,13 @@ def test_analyze_bundled_clip_recovers_the_generating_viscosity(tmp_path, capsys
     assert f"{track['transient']['mu_pa_s']:.4g} Pa·s" in html
     pair = track["stopwatch"]["pairs"][0]
     assert f"{pair['stopwatch_speed_m_s'] * 1e3:.5g}" in html
+    # the temperature row reads in °C with its effect per kelvin: 99 % glycerol changes by
+    # −9.02 %/K at 20 °C (physics-references, "Temperature", computed from Cheng's model); the
+    # result stated at the nominal temperature moves the other way (+)
+    row = re.search(r"liquid temperature.*?</tr>", html).group(0)
+    assert ">21.00<" in row and "°C" in row
+    per_k = float(re.search(r"([+−-][\d.]+) % per K", row).group(1))
+    assert 8.0 < per_k < 10.0
     with (out / "trajectory.csv").open(encoding="utf-8") as fh:
         header = next(csv.reader(fh))
     for col in ("frame", "t_s", "x_px", "y_px", "z_mm", "v_mm_s", "track", "in_plateau"):
