@@ -106,7 +106,8 @@ def bench_throughput(work: Path, duration_s: float, rounds: int = 3) -> dict:
     tasks = {
         "decode-only": lambda: decode_only(clip),
         "decode-only, PyAV defaults": lambda: decode_only(clip, "pyav"),
-        "track": lambda: track_clip(clip, rig.scale(), expect_direction="down"),
+        "track": lambda: track_clip(clip, rig.scale(), expect_direction="down",
+                                    ball_diameter_mm=rig.ball.diameter_mm),
         "analyze (no figures)": lambda: analyze_clip(clip, rig, work / "analyze_out", figures=False),
         "analyze (figures + report)": lambda: analyze_clip(clip, rig, work / "analyze_out_fig"),
     }
@@ -134,7 +135,9 @@ def _peak_rss_mb(clip: Path, rig_path: Path, what: str) -> float:
     parent's high-water mark across exec)."""
     job = {
         "track": ("from fallcam.rig import load_rig\nfrom tracker.track import track_clip\n"
-                  "track_clip(sys.argv[1], load_rig(sys.argv[2]).scale(), expect_direction='down')\n"),
+                  "rig = load_rig(sys.argv[2])\n"
+                  "track_clip(sys.argv[1], rig.scale(), expect_direction='down', "
+                  "ball_diameter_mm=rig.ball.diameter_mm)\n"),
         "decode": ("import av\nfrom tracker.video import configure_decoder\n"
                    "c = av.open(sys.argv[1]); s = c.streams.video[0]; configure_decoder(s)\n"
                    "for f in c.decode(s): f.to_ndarray(format='gray')\n"),
