@@ -62,7 +62,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy.optimize import isotonic_regression
-from scipy.stats import norm
+from scipy.special import ndtri  # standard normal quantile (scipy.stats.norm.ppf)
 
 from physics._results import plain
 from physics.terminal import fit_line, hac_covariance, sliding_line_weights, trajectory_arrays
@@ -175,7 +175,7 @@ class Plateau:
 
 
 def _criterion(alpha: float, m: int) -> str:
-    c = norm.ppf(1 - alpha / 2)
+    c = ndtri(1 - alpha / 2)
     return (
         f"local speed in {m}-point windows within {c:.3g} standard errors (AR(1) noise model) of the "
         f"plateau speed after monotone (isotonic) smoothing of the deficits, and curvature of z(t) over "
@@ -502,7 +502,7 @@ def find_plateau(
             f"{exclude_bottom_mm!r}"
         )
     n_all = t.size
-    c = float(norm.ppf(1 - alpha / 2))
+    c = float(ndtri(1 - alpha / 2))
     excluded = np.zeros(n_all, dtype=bool)
     if exclude_top_mm is not None:
         excluded |= z < exclude_top_mm
@@ -557,7 +557,7 @@ def find_plateau(
     if st.e < n - 1:  # points after the plateau: a ball still speeding up there never reached it
         faster = _speed_change_z(tg, zg, st, m)
         # rejecting the whole plateau: Bonferroni over the n/m windows the end search scanned
-        c_record = float(norm.ppf(1 - alpha / (2 * max(n / m, 1.0))))
+        c_record = float(ndtri(1 - alpha / (2 * max(n / m, 1.0))))
         if faster > c_record:
             return result(False, _ACCELERATING, curvature_z=curv, **noise)
         if faster < -c:

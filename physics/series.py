@@ -31,7 +31,7 @@ from typing import Any
 
 import numpy as np
 import numpy.typing as npt
-from scipy import stats
+from scipy.special import chdtrc  # chi-squared survival function (scipy.stats.chi2.sf)
 
 from physics.drag import STOKES_RE_MAX, require_positive
 from physics.gravity import STANDARD_GRAVITY_M_S2
@@ -166,7 +166,7 @@ def weighted_mean(values: Sequence[float] | Array, u: Sequence[float] | Array) -
     if dof == 0:
         return PooledMean(mean, u_int, u_int, chi2, 0, 1.0, None, True)
     birge = math.sqrt(chi2 / dof)
-    p = float(stats.chi2.sf(chi2, dof))
+    p = float(chdtrc(dof, chi2))
     return PooledMean(mean, u_int * max(1.0, birge), u_int, chi2, dof, birge, p, p >= CONSISTENCY_ALPHA)
 
 

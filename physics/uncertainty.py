@@ -25,7 +25,7 @@ from typing import Any
 
 import numpy as np
 import numpy.typing as npt
-from scipy import stats
+from scipy.special import stdtrit  # Student t quantile (scipy.stats.t.ppf)
 
 from physics.drag import drag_law_spread, require_positive, wall_model_spread
 from physics.gravity import STANDARD_GRAVITY_M_S2
@@ -344,7 +344,7 @@ def viscosity_budget(
     u_c = math.sqrt(variance)
     ws = sum((c * u) ** 4 / dof for _, _, u, c, dof in raw if dof is not None)
     dof_eff = None if ws == 0.0 else variance**2 / ws
-    k = 2.0 if dof_eff is None else float(stats.t.ppf(0.5 + COVERAGE_PROBABILITY / 2.0, dof_eff))
+    k = 2.0 if dof_eff is None else float(stdtrit(dof_eff, 0.5 + COVERAGE_PROBABILITY / 2.0))
     if dof_eff is not None and dof_eff < DOF_WARN:
         warnings.append(f"only {dof_eff:.1f} effective degrees of freedom: k = {k:.2f} instead of 2; repeat the drop")
     rows = [
