@@ -343,12 +343,14 @@ def _share_cores(threads: int) -> None:
 def _run_local(jobs: list[_ClipJob], worker: Worker, n_jobs: int,
                report: Callable[[int, ClipOutcome], None]) -> None:
     """Run ``jobs`` on ``n_jobs`` local processes; isolate clips that kill their process."""
+    from tracker.video import available_cores
+
     pending = deque(enumerate(jobs))
     suspects: deque[tuple[int, _ClipJob]] = deque()
     width = n_jobs
     while pending:
         pool = ProcessPoolExecutor(max_workers=min(width, len(pending)), initializer=_share_cores,
-                                   initargs=(max(1, (os.cpu_count() or 1) // max(width, 1)),))
+                                   initargs=(max(1, available_cores() // max(width, 1)),))
         in_flight: dict[Future[ClipOutcome], tuple[int, _ClipJob]] = {}
         try:
             while pending or in_flight:

@@ -702,17 +702,29 @@ DECODE_THREADS_ENV = "FALLCAM_DECODE_THREADS"
 #: keep the cores busy on a noisy phone clip; three per core decodes a 1080p60 H.264 clip at
 #: 18 Mbit/s ~10 % faster on 2 cores (benchmarks/run.py compares decode-only with these settings).
 DECODE_THREADS_PER_CORE = 3
+#: ... but never more than this many: each frame thread holds a whole frame context (tens of MB at
+#: 4K), and a large machine gains nothing from more.
+DECODE_THREADS_MAX = 16
+
+
+def available_cores() -> int:
+    """Cores this process may run on (its CPU affinity; all of the machine's where unknown)."""
+    if hasattr(os, "sched_getaffinity"):
+        return max(1, len(os.sched_getaffinity(0)))
+    return os.cpu_count() or 1
 
 
 def configure_decoder(stream) -> None:
     """Threading of a PyAV video stream's decoder, as fallcam decodes: frame and slice threads,
-    ``DECODE_THREADS_PER_CORE`` per core, or ``$FALLCAM_DECODE_THREADS`` when set (a parallel
-    batch gives each worker its share of the cores)."""
+    ``DECODE_THREADS_PER_CORE`` per core this process may run on (at most
+    ``DECODE_THREADS_MAX``), or ``$FALLCAM_DECODE_THREADS`` when set (a parallel batch gives each
+    worker its share of the cores)."""
     threads = os.environ.get(DECODE_THREADS_ENV)
     if threads:
         stream.codec_context.thread_count = max(1, int(threads))
     else:
-        stream.codec_context.thread_count = DECODE_THREADS_PER_CORE * (os.cpu_count() or 1)
+        stream.codec_context.thread_count = min(DECODE_THREADS_PER_CORE * available_cores(),
+                                                DECODE_THREADS_MAX)
     stream.codec_context.thread_type = "AUTO"
 
 
