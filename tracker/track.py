@@ -534,9 +534,9 @@ class _Loop:
             now = luma[y0 + iy:y1 + iy, x0 + ix:x1 + ix].astype(np.float32)
             if float(np.mean(np.abs(now - self.bg.image[y0:y1, x0:x1]))) < _IMPRINT_CHANGE_DN:
                 continue
-            frame_boxes = [(int(a), int(b), int(math.ceil(c)), int(math.ceil(d)))
-                           for a, b, c, d in windows]
-            self.bg.update(luma, self.shift, frame_boxes, 1.0, region=box)
+            keep_out = [(int(a), int(b), int(math.ceil(c)), int(math.ceil(d)))  # scene frame
+                        for a, b, c, d in windows]
+            self.bg.update(luma, self.shift, keep_out, 1.0, region=box)
             self.imprints.remove(blob)
             for tr in self.active + self.done:
                 keep = [p for p in tr.points[:-1] if not _overlap(_window(p), box)]
