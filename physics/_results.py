@@ -22,3 +22,11 @@ def plain(value: Any) -> Any:
     if isinstance(value, np.generic):
         return value.item()
     return value
+
+
+class ResultDict:
+    """Mixin of the physics result dataclasses: ``to_dict()`` is their JSON-friendly dict."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-friendly dict of all fields (see :func:`plain`)."""
+        return plain(self)

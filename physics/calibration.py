@@ -24,11 +24,11 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import asdict, dataclass, field
-from typing import Any
+from dataclasses import dataclass, field
 
 import numpy as np
 
+from physics._results import ResultDict
 from physics.drag import require_positive
 from physics.series import weighted_mean
 
@@ -48,7 +48,7 @@ SAME_SIZE_TOL = 0.01
 
 
 @dataclass(frozen=True)
-class ApparatusCalibration:
+class ApparatusCalibration(ResultDict):
     """Apparatus factor from runs in a reference liquid.
 
     Attributes
@@ -79,10 +79,6 @@ class ApparatusCalibration:
     tube_d_m: float | None
     d_m: float | None
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields."""
-        return asdict(self)
 
 
 def calibrate_apparatus(
@@ -164,7 +160,7 @@ def calibrate_apparatus(
 
 
 @dataclass(frozen=True)
-class CalibratedViscosity:
+class CalibratedViscosity(ResultDict):
     """A viscosity with the apparatus factor applied.
 
     Attributes
@@ -187,10 +183,6 @@ class CalibratedViscosity:
     factor: float
     u_factor: float
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields."""
-        return asdict(self)
 
 
 def _size_warning(what: str, calibrated: float | None, used: float | None) -> list[str]:

@@ -12,11 +12,13 @@ Validity problems are returned as strings in a result's ``warnings`` list; non-p
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import numpy.typing as npt
+
+from physics._results import ResultDict
 
 __all__ = [
     "DRAG_LAWS",
@@ -250,7 +252,7 @@ def wall_factor_value(lam: ArrayLike, model: str = "haberman-sayre") -> ArrayLik
 
 
 @dataclass(frozen=True)
-class WallFactor:
+class WallFactor(ResultDict):
     """Wall factor of a sphere on the axis of a cylindrical tube (creeping flow).
 
     Attributes
@@ -275,10 +277,6 @@ class WallFactor:
     diameter_ratio: float
     source: str
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields."""
-        return asdict(self)
 
 
 def wall_factor(lam: float, model: str = "haberman-sayre") -> WallFactor:
@@ -507,7 +505,7 @@ def _law_range_warning(re: float, law: str) -> list[str]:
 
 
 @dataclass(frozen=True)
-class DragCoefficient:
+class DragCoefficient(ResultDict):
     """Drag coefficient of a rigid sphere at one Reynolds number.
 
     Attributes
@@ -532,10 +530,6 @@ class DragCoefficient:
     law: str
     source: str
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields."""
-        return asdict(self)
 
 
 def drag_coefficient(re: float, law: str = "clift-grace-weber") -> DragCoefficient:
@@ -665,7 +659,7 @@ def ladenburg_end_factor(d_m: float, liquid_height_m: float) -> float:
 
 
 @dataclass(frozen=True)
-class EndEffect:
+class EndEffect(ResultDict):
     """Screening statement for the bottom or free-surface end effect inside a tube.
 
     Attributes
@@ -695,10 +689,6 @@ class EndEffect:
     pipe_decay_estimate: float
     statement: str
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields."""
-        return asdict(self)
 
 
 def end_effect_screening(distance_to_end_m: float, tube_d_m: float) -> EndEffect:

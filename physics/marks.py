@@ -16,13 +16,12 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from physics._results import plain
+from physics._results import ResultDict
 from physics.plateau import Plateau
 from physics.terminal import MM_PER_M, TerminalFit, fit_line, trajectory_arrays
 
@@ -44,7 +43,7 @@ _RECENTRE = 3  # local fits around a crossing (the first one starts at the first
 
 
 @dataclass(frozen=True)
-class MarkResult:
+class MarkResult(ResultDict):
     """One timing mark.
 
     Attributes
@@ -82,10 +81,6 @@ class MarkResult:
     terminal_at_mark: bool
     velocity_deficit: float | None
     note: str = ""
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dictionary of the attributes."""
-        return plain(self)
 
 
 def _local_covariance(t_window: NDArray[np.float64], plateau: Plateau, fallback: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -197,7 +192,7 @@ def mark_crossings(
 
 
 @dataclass(frozen=True)
-class StopwatchInterval:
+class StopwatchInterval(ResultDict):
     """What a stopwatch between two consecutive marks would have given.
 
     Attributes
@@ -232,10 +227,6 @@ class StopwatchInterval:
     hand_speed_u_m_s: float
     video_speed_u_m_s: float
     relative_to_terminal: float | None = field(default=None)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dictionary of the attributes."""
-        return plain(self)
 
 
 def stopwatch_comparison(

@@ -64,7 +64,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.optimize import isotonic_regression
 from scipy.special import ndtri  # standard normal quantile (scipy.stats.norm.ppf)
 
-from physics._results import plain
+from physics._results import ResultDict
 from physics.terminal import fit_line, hac_covariance, sliding_line_weights, trajectory_arrays
 
 __all__ = ["Plateau", "find_plateau"]
@@ -85,7 +85,7 @@ _ACCELERATING = "still accelerating when it left the view: the speed keeps risin
 
 
 @dataclass(frozen=True, eq=False)
-class Plateau:
+class Plateau(ResultDict):
     """Where the speed is constant within its noise.
 
     Attributes
@@ -168,10 +168,6 @@ class Plateau:
     noise_lag1: float | None
     criterion: str
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dictionary (masks as lists of bool, plain floats)."""
-        return plain(self)
 
 
 def _criterion(alpha: float, m: int) -> str:

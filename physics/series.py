@@ -26,13 +26,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import asdict, dataclass, field, replace
-from typing import Any
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import numpy.typing as npt
 from scipy.special import chdtrc  # chi-squared survival function (scipy.stats.chi2.sf)
 
+from physics._results import ResultDict
 from physics.drag import STOKES_RE_MAX, require_positive
 from physics.gravity import STANDARD_GRAVITY_M_S2
 from physics.uncertainty import ViscosityInputs, viscosity_budget
@@ -98,7 +98,7 @@ class Drop:
 
 
 @dataclass(frozen=True)
-class PooledMean:
+class PooledMean(ResultDict):
     """Weighted mean with a consistency check.
 
     Attributes
@@ -130,10 +130,6 @@ class PooledMean:
     birge_ratio: float
     p_value: float | None
     consistent: bool
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields."""
-        return asdict(self)
 
 
 def weighted_mean(values: Sequence[float] | Array, u: Sequence[float] | Array) -> PooledMean:
@@ -366,7 +362,7 @@ class PowerLawFit:
 
 
 @dataclass(frozen=True)
-class SeriesResult:
+class SeriesResult(ResultDict):
     """Everything the series analysis found.
 
     Attributes
@@ -400,10 +396,6 @@ class SeriesResult:
     delta_rho_ref_kg_m3: float
     velocities_wall_corrected: bool
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields."""
-        return asdict(self)
 
 
 def _wls(x: Array, y: Array, sigma: Array, intercept: bool) -> tuple[Array, Array, float, int]:

@@ -32,13 +32,12 @@ naive OLS interval does not.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from physics._results import plain
+from physics._results import ResultDict
 
 __all__ = [
     "MM_PER_M",
@@ -311,7 +310,7 @@ def fit_line(t_s: ArrayLike, z_mm: ArrayLike, z_u_mm: ArrayLike | None = None) -
 
 
 @dataclass(frozen=True)
-class TerminalFit:
+class TerminalFit(ResultDict):
     """Terminal velocity from a straight-line fit over the plateau, in SI units.
 
     Attributes
@@ -371,10 +370,6 @@ class TerminalFit:
     residuals_mm: tuple[float, ...]
     method: str
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dictionary (plain floats, lists), keys as the attributes."""
-        return plain(self)
 
 
 def fit_terminal_velocity(

@@ -38,7 +38,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.optimize import brentq, least_squares
 from scipy.special import wofz
 
-from physics._results import plain
+from physics._results import ResultDict
 from physics.drag import STOKES_RE_MAX, require_positive
 from physics.terminal import MM_PER_M, fit_line, hac_covariance, trajectory_arrays
 from physics.viscosity import reynolds_number, stokes_terminal_velocity
@@ -96,7 +96,7 @@ def _dimensionless_distance(theta: NDArray[np.float64], beta: float) -> NDArray[
 
 
 @dataclass(frozen=True)
-class TransientModel:
+class TransientModel(ResultDict):
     """Solution of the equation of motion for a sphere released from rest.
 
     Build it with :func:`transient_model`. Times are counted from the release.
@@ -182,10 +182,6 @@ class TransientModel:
     def distance_to_fraction(self, p: float) -> float:
         """Distance from release until the speed reaches the fraction ``p`` of v_t, m."""
         return float(self.distance_m(np.array([self.time_to_fraction(p)]))[0])
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dictionary of the attributes."""
-        return plain(self)
 
 
 def transient_model(
@@ -328,7 +324,7 @@ def basset_tail_deficit(t_s: ArrayLike, *, d_m: float, rho_f_kg_m3: float, mu_pa
 
 
 @dataclass(frozen=True)
-class TransientFit:
+class TransientFit(ResultDict):
     """Fit of the equation of motion to the approach — the "transient estimate".
 
     Attributes
@@ -381,10 +377,6 @@ class TransientFit:
     residual_rms_mm: float
     converged: bool
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dictionary of the attributes."""
-        return plain(self)
 
 
 def fit_transient(

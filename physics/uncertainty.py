@@ -20,13 +20,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import asdict, dataclass, field
-from typing import Any
+from dataclasses import dataclass, field
 
 import numpy as np
 import numpy.typing as npt
 from scipy.special import stdtrit  # Student t quantile (scipy.stats.t.ppf)
 
+from physics._results import ResultDict
 from physics.drag import drag_law_spread, require_positive, wall_model_spread
 from physics.gravity import STANDARD_GRAVITY_M_S2
 from physics.viscosity import force_balance, infer_viscosity
@@ -182,7 +182,7 @@ class BudgetRow:
 
 
 @dataclass(frozen=True)
-class UncertaintyBudget:
+class UncertaintyBudget(ResultDict):
     """GUM budget of the viscosity.
 
     Attributes
@@ -218,10 +218,6 @@ class UncertaintyBudget:
     rows: list[BudgetRow]
     dominant: str
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields (rows as dicts)."""
-        return asdict(self)
 
 
 def _nominal(inputs: ViscosityInputs, wall: str, drag: str) -> dict[str, tuple[float, float]]:
@@ -379,7 +375,7 @@ def viscosity_budget(
 
 
 @dataclass(frozen=True)
-class MonteCarloResult:
+class MonteCarloResult(ResultDict):
     """Propagation of distributions (JCGM 101) through the viscosity model.
 
     Attributes
@@ -406,10 +402,6 @@ class MonteCarloResult:
     coverage_probability: float
     n_samples: int
     seed: int
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields."""
-        return asdict(self)
 
 
 def monte_carlo(

@@ -20,12 +20,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass, field
 from typing import Any, NamedTuple
 
 import numpy as np
 import numpy.typing as npt
 
+from physics._results import ResultDict
 from physics.drag import (
     DRAG_LAWS,
     WALL_MODELS,
@@ -316,7 +317,7 @@ def _regime_warnings(re: float, drag: str, tube_d_m: float | None, lam: float) -
 
 
 @dataclass(frozen=True)
-class ViscosityResult:
+class ViscosityResult(ResultDict):
     """Viscosity inferred from a terminal speed, with every correction named.
 
     Attributes
@@ -363,10 +364,6 @@ class ViscosityResult:
     g_m_s2: float
     corrections: dict[str, float] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields."""
-        return asdict(self)
 
 
 def infer_viscosity(
@@ -455,7 +452,7 @@ def infer_viscosity(
 
 
 @dataclass(frozen=True)
-class TerminalVelocityPrediction:
+class TerminalVelocityPrediction(ResultDict):
     """Terminal speed predicted for a known viscosity (forward model, e.g. for ``fallcam plan``).
 
     Attributes
@@ -489,10 +486,6 @@ class TerminalVelocityPrediction:
     direction: str
     corrections: dict[str, float] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-friendly dict of all fields."""
-        return asdict(self)
 
 
 def terminal_velocity(
