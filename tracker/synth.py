@@ -559,10 +559,7 @@ class BassetSolution:
         -------
         ndarray, same shape as s
         """
-        s = np.asarray(s, dtype=float)
-        _check(bool(np.all(s <= self.s_max)), f"s = {np.max(s):g}: beyond the solved range "
-                                              f"(s_max = {self.s_max:g}); solve further")
-        return np.where(s > 0, self._u_spline(np.clip(s, 0.0, None)), 0.0)
+        return self._evaluate(self._u_spline, s)
 
     def distance_fraction(self, s: np.ndarray | float) -> np.ndarray:
         """∫₀ˢ u ds at t/τ = s (0 for s ≤ 0); distance travelled in units of v∞ τ.
@@ -576,10 +573,14 @@ class BassetSolution:
         -------
         ndarray, same shape as s
         """
+        return self._evaluate(self._d_spline, s)
+
+    def _evaluate(self, spline, s: np.ndarray | float) -> np.ndarray:
+        """A solution spline at t/τ = s (0 for s ≤ 0), within the solved range."""
         s = np.asarray(s, dtype=float)
         _check(bool(np.all(s <= self.s_max)), f"s = {np.max(s):g}: beyond the solved range "
                                               f"(s_max = {self.s_max:g}); solve further")
-        return np.where(s > 0, self._d_spline(np.clip(s, 0.0, None)), 0.0)
+        return np.where(s > 0, spline(np.clip(s, 0.0, None)), 0.0)
 
 
 def basset_solution(density_ratio: float, s_max: float) -> BassetSolution:
