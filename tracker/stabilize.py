@@ -388,15 +388,11 @@ class Stabilizer:
         if len(self.centres) == 0:  # no structure at all: both axes weak, held at zero
             return Registration(0.0, 0.0, True, 0, float("nan"))
         half = self.patch_px / 2.0 + 2.0
-        use = []
-        for i, (cx, cy) in enumerate(self.centres):
-            if not self._active[i]:
-                continue
-            px, py = cx + self._shift[0], cy + self._shift[1]
-            if not any(px + half > bx0 and px - half < bx1 and py + half > by0 and py - half < by1
-                       for bx0, by0, bx1, by1 in exclude_boxes):
-                use.append(i)
-        idx = np.array(use, dtype=np.intp)
+        px, py = (self.centres + self._shift).T
+        use = self._active.copy()
+        for bx0, by0, bx1, by1 in exclude_boxes:
+            use &= ~((px + half > bx0) & (px - half < bx1) & (py + half > by0) & (py - half < by1))
+        idx = np.flatnonzero(use)
         if idx.size == 0:
             return Registration(float(self._shift[0]), float(self._shift[1]), False, 0, float("nan"))
         shift, resid = self._gauss_newton(luma, self._shift.copy(), idx)

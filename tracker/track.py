@@ -32,6 +32,7 @@ millimetres only through ``scale.to_mm``.
 
 from __future__ import annotations
 
+import bisect
 import math
 import pathlib
 import statistics
@@ -255,17 +256,22 @@ class _Track:
         return self._velocity
 
     def _fit_velocity(self) -> tuple[float, float]:
+        # least-squares slope of the last few points (plain Python: numpy costs more on 8 values)
         pts = self.points[-_PREDICT_POINTS:]
-        if len(pts) < 2:
+        n = len(pts)
+        if n < 2:
             return 0.0, 0.0
-        t = np.array([p.t_frame for p in pts])
-        if t[-1] - t[0] <= 0:
+        t0 = pts[0].t_frame
+        if pts[-1].t_frame - t0 <= 0:
             return 0.0, 0.0
-        x = np.array([p.x for p in pts])
-        y = np.array([p.y for p in pts])
-        tc = t - t.mean()
-        den = float((tc * tc).sum())
-        return float((tc * (x - x.mean())).sum() / den), float((tc * (y - y.mean())).sum() / den)
+        tc = [p.t_frame - t0 for p in pts]
+        t_mean = sum(tc) / n
+        tc = [v - t_mean for v in tc]
+        den = sum(v * v for v in tc)
+        x_mean = sum(p.x for p in pts) / n
+        y_mean = sum(p.y for p in pts) / n
+        return (sum(v * (p.x - x_mean) for v, p in zip(tc, pts)) / den,
+                sum(v * (p.y - y_mean) for v, p in zip(tc, pts)) / den)
 
     def predict(self, t: float) -> tuple[float, float]:
         """Predicted scene position at physical time ``t`` (constant velocity), px."""
@@ -294,15 +300,15 @@ class _Track:
     def still(self) -> bool:
         """True when the object has not moved (speed below _STILL_SPEED_PX_S) for _STILL_S."""
         last = self.points[-1]
-        recent = []
-        for p in reversed(self.points):  # the last _STILL_S seconds, newest first
-            if p.t_frame < last.t_frame - _STILL_S:
-                break
-            recent.append(p)
-        if recent[-1].t_frame > last.t_frame - 0.9 * _STILL_S or len(recent) < 5:
+        start = bisect.bisect_left(self.points, last.t_frame - _STILL_S, key=lambda p: p.t_frame)
+        recent = self.points[start:]            # the last _STILL_S seconds, oldest first
+        if recent[0].t_frame > last.t_frame - 0.9 * _STILL_S or len(recent) < 5:
             return False
-        span = max(math.hypot(p.x - last.x, p.y - last.y) for p in recent)
-        return span < _STILL_SPEED_PX_S * _STILL_S
+        limit = _STILL_SPEED_PX_S * _STILL_S
+        # a moving object is told at once by its oldest recent point
+        if math.hypot(recent[0].x - last.x, recent[0].y - last.y) >= limit:
+            return False
+        return max(math.hypot(p.x - last.x, p.y - last.y) for p in recent) < limit
 
 
 def _stitch(tracks: list[_Track]) -> list[_Track]:
@@ -426,20 +432,20 @@ def _empirical_noise(t: NDArray[np.float64], x: NDArray[np.float64], y: NDArray[
         half = (n - 1) // 2
     if half < 3:
         return float("nan")
-    res, fac = [], []
-    for i in range(n):
-        lo = min(max(0, i - half), n - 2 * half - 1)
-        idx = [j for j in range(lo, lo + 2 * half + 1) if j != i]
-        tt = t[idx] - t[i]
-        scale_t = max(float(np.abs(tt).max()), 1e-9)
-        a = np.column_stack([np.ones(len(idx)), tt / scale_t, (tt / scale_t) ** 2])
-        ata_inv = np.linalg.pinv(a.T @ a)
-        lev = float(ata_inv[0, 0])            # variance factor of the fit at t_i
-        for v in (x, y):
-            coef = ata_inv @ (a.T @ v[idx])
-            res.append(float(v[i] - coef[0]))
-            fac.append(1.0 + lev)
-    r = np.array(res) / np.sqrt(np.array(fac))
+    # every point's neighbours (the window slides along but stays inside the data), one batch
+    lo = np.clip(np.arange(n) - half, 0, n - 2 * half - 1)
+    window = lo[:, None] + np.arange(2 * half + 1)[None, :]
+    idx = window[window != np.arange(n)[:, None]].reshape(n, 2 * half)       # leave point i out
+    tt = t[idx] - t[:, None]
+    tt = tt / np.maximum(np.abs(tt).max(axis=1, keepdims=True), 1e-9)
+    a = np.stack([np.ones_like(tt), tt, tt * tt], axis=-1)                    # (n, 2h, 3)
+    ata_inv = np.linalg.pinv(np.swapaxes(a, 1, 2) @ a)
+    fac = 1.0 + ata_inv[:, 0, 0]                    # variance factor of the fit at t_i
+    res = []
+    for v in (x, y):
+        coef = ata_inv @ (np.swapaxes(a, 1, 2) @ v[idx][:, :, None])
+        res.append((v - coef[:, 0, 0]) / np.sqrt(fac))
+    r = np.concatenate(res)
     mad = float(np.median(np.abs(r))) * 1.4826
     # codec errors have heavy tails: the RMS of all but gross outliers, not the MAD
     core = r[np.abs(r) <= 5.0 * mad] if mad > 0 else r
