@@ -43,6 +43,7 @@ _TRACK_STYLES = (
 _PLATEAU_HATCHES = ("//", "\\\\", "||", "--", "++")
 _FIGSIZE_IN = (7.5, 4.8)
 _DPI = 150
+_PNG_COMPRESS_LEVEL = 3
 _MARKERS_PER_TRACK = 24  # enough markers to tell tracks apart in greyscale, few enough to read
 _LABEL_GAP = 0.085  # axes fraction taken by a two-line 8 pt margin label on a 4.8 in figure
 _VELOCITY_BINS = 12  # block means on the plateau: few enough to see a drift through the noise
@@ -457,7 +458,8 @@ def _new_axes() -> tuple[Figure, Any]:
 
 def _save(fig: Figure, path: str | os.PathLike) -> Path:
     buffer = io.BytesIO()
-    fig.savefig(buffer, format="png", dpi=_DPI)
+    # zlib level 3 instead of 6: a third less time per figure for files ~10 % larger
+    fig.savefig(buffer, format="png", dpi=_DPI, pil_kwargs={"compress_level": _PNG_COMPRESS_LEVEL})
     out = Path(path)
     atomic_write_bytes(out, buffer.getvalue())
     return out

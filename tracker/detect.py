@@ -376,14 +376,13 @@ def _median(a: NDArray) -> float:
     return float(np.partition(flat, k)[k])
 
 
-def _streak_length(occ: NDArray[np.float32], support: NDArray[np.uint8]) -> float:
+def _streak_length(o: NDArray[np.float64], xs: NDArray[np.float64], ys: NDArray[np.float64]) -> float:
     """Length of the vertical motion-blur streak from the occupancy moments, px.
 
-    Motion blur keeps the occupancy's integral (area A) and horizontal moment (width d_h) and adds
-    L²/12 to the vertical variance of the disc's d_v²/16, with d_v = 4A/(π d_h).
+    ``o`` is the occupancy at the pixels (``xs``, ``ys``). Motion blur keeps the occupancy's
+    integral (area A) and horizontal moment (width d_h) and adds L²/12 to the vertical variance
+    of the disc's d_v²/16, with d_v = 4A/(π d_h).
     """
-    ys, xs = np.nonzero(support)
-    o = occ[ys, xs].astype(np.float64)
     area = float(o.sum())
     if area <= 0:
         return 0.0
@@ -500,12 +499,18 @@ def measure(luma: NDArray[np.uint8], background: Background, shift: tuple[float,
     if weights[main_label] <= 0:
         return None, "none"
     main = (labels == main_label).astype(np.uint8)
-    touches = bool(main[0].any() or main[-1].any() or main[:, 0].any() or main[:, -1].any())
     filled = _fill_holes(main)
+    # the filled outline has the object's bounding box (its holes are enclosed); rows come sorted
+    fy_i, fx_i = np.nonzero(filled)
+    fx_lo, fx_hi = int(fx_i.min()), int(fx_i.max())
+    touches = bool(fy_i[0] == 0 or fy_i[-1] == h - 1 or fx_lo == 0 or fx_hi == w - 1)
     support = cv2.dilate(filled, _K3)
+    sy_i, sx_i = np.nonzero(support)     # occupancy is 0 outside the support from here on
+    px = sx_i.astype(np.float64)
+    py = sy_i.astype(np.float64)
     interior = cv2.erode(filled, _K3).astype(bool)
     holes = (filled > 0) & (main == 0)
-    n_filled = float(filled.sum())
+    n_filled = float(fy_i.size)
     hole_fraction = float(holes.sum()) / max(n_filled, 1.0)
 
     # 3. occupancy
@@ -545,19 +550,15 @@ def measure(luma: NDArray[np.uint8], background: Background, shift: tuple[float,
         # the highlight's missing mass inflates the moment estimate; the filled outline's height
         # minus its width cannot be fooled by it (and is no larger than the streak unless the tube
         # magnifies sideways, which only shortens it)
-        fy_i, fx_i = np.nonzero(filled)
-        outline = float((fy_i.max() - fy_i.min()) - (fx_i.max() - fx_i.min()))
-        blur0 = min(_streak_length(occ, support), max(outline, 0.0) + 2.0)
+        outline = float((fy_i[-1] - fy_i[0]) - (fx_hi - fx_lo))
+        blur0 = min(_streak_length(occ[sy_i, sx_i].astype(np.float64), px, py), max(outline, 0.0) + 2.0)
         k = 1 + 2 * int(np.ceil(blur0 / 2.0)) if blur0 > _STREAK_MIN_PX else 3
         inside = cv2.erode(filled, np.ones((k, 3), np.uint8)).astype(bool) if k > 3 else interior
         occ[inside] = 1.0
     occ[holes] = 1.0
 
     # 4. re-centred symmetric aperture (on the support pixels only: occupancy is 0 elsewhere)
-    sy_i, sx_i = np.nonzero(support)
     o = occ[sy_i, sx_i]
-    px = sx_i.astype(np.float64)
-    py = sy_i.astype(np.float64)
     ax = max((px.max() - px.min() + 1) / 2.0 + 1.0, 2.0)
     ay = max((py.max() - py.min() + 1) / 2.0 + 1.0, 2.0)
     tot = float(o.sum())
