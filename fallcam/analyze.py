@@ -43,6 +43,11 @@ TIME_BASE_U_REL = {"container": 5e-5, "nominal": 1e-3}
 TRANSIENT_MAX_POINTS = 60
 #: Lateral drift over the plateau above this fraction of the tube diameter is reported.
 LATERAL_DRIFT_WARN_FRACTION = 0.05
+#: Without a ``[lens]`` calibration, a plateau reaching farther than this fraction of the way
+#: from the frame centre to an edge (horizontally or vertically) is reported: lens distortion
+#: grows towards the edges, so keep the measured region in the central part of the frame
+#: (common practice, no source; not a published value).
+EDGE_WARN_FRACTION = 0.8
 
 def _versions() -> dict[str, str]:
     out = {"fallcam": __version__, "python": platform.python_version()}
@@ -57,12 +62,44 @@ def _versions() -> dict[str, str]:
 
 
 def _track(clip_path: Path, rig: Rig, progress: Progress | None) -> Any:
+    from fallcam.errors import UsageError
+    from tracker.lens import LensMismatchError
     from tracker.track import track_clip
 
-    return track_clip(clip_path, rig.scale(), capture_fps=rig.camera.capture_fps,
-                      readout_ms=rig.camera.readout_ms or 0.0,
-                      expect_direction=rig.expected_direction(),
-                      ball_diameter_mm=rig.ball.diameter_mm, progress=progress)
+    try:
+        return track_clip(clip_path, rig.scale(), capture_fps=rig.camera.capture_fps,
+                          readout_ms=rig.camera.readout_ms or 0.0,
+                          expect_direction=rig.expected_direction(),
+                          ball_diameter_mm=rig.ball.diameter_mm, progress=progress)
+    except LensMismatchError as exc:
+        raise UsageError(f"{rig.path}: {exc}") from None
+
+
+def edge_reach(x_px: np.ndarray, y_px: np.ndarray, width_px: int, height_px: int
+               ) -> tuple[float, str]:
+    """How far points get from the frame centre towards its edges.
+
+    Parameters
+    ----------
+    x_px, y_px : ndarray
+        Positions in the displayed frame, px.
+    width_px, height_px : int
+        Displayed frame size, px.
+
+    Returns
+    -------
+    (float, str)
+        The largest of |x − c_x| / c_x and |y − c_y| / c_y (0 at the centre, 1 at the outer
+        pixel centres) and the edge it was reached towards (``"top"``, ``"bottom"``, ``"left"``,
+        ``"right"``).
+    """
+    cx, cy = (width_px - 1) / 2.0, (height_px - 1) / 2.0
+    fx = (np.asarray(x_px, float) - cx) / cx
+    fy = (np.asarray(y_px, float) - cy) / cy
+    ix, iy = int(np.argmax(np.abs(fx))), int(np.argmax(np.abs(fy)))
+    if abs(fx[ix]) >= abs(fy[iy]):
+        return float(abs(fx[ix])), "right" if fx[ix] > 0 else "left"
+    return float(abs(fy[iy])), "bottom" if fy[iy] > 0 else "top"
 
 
 def _exclusion_zones(g: pd.DataFrame, rig: Rig, frame_height_px: int,
@@ -164,7 +201,8 @@ def _transient_points(t: np.ndarray, plat: plateau.Plateau) -> np.ndarray:
 
 
 def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray,
-                   timestamps: str, frame_height_px: int, last_frame: int
+                   timestamps: str, frame_height_px: int, last_frame: int,
+                   frame_width_px: int | None = None
                    ) -> tuple[dict[str, Any], np.ndarray, np.ndarray]:
     """Physics of one passage. Returns (track dict, v_mm_s column, in_plateau column)."""
     t = g["t_s"].to_numpy(float)
@@ -191,7 +229,8 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
         "coverage_factor_k": None, "stokes_viscosity_pa_s": None, "reynolds_number": None,
         "wall_factor": None, "corrections": {}, "budget": None, "transient": None,
         "comparison": None, "calibration": None, "velocity_fit": None,
-        "lateral_offset_mm": None, "lateral_drift_mm": None, "warnings": warnings,
+        "lateral_offset_mm": None, "lateral_drift_mm": None, "edge_reach_fraction": None,
+        "warnings": warnings,
     }
     in_plateau = np.asarray(plat.mask, bool)
     fit = None
@@ -205,6 +244,18 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
         lat = g["lateral_mm"].to_numpy(float)[in_plateau]
         out["lateral_offset_mm"] = float(np.mean(lat))
         out["lateral_drift_mm"] = float(lat[-1] - lat[0])
+        if frame_width_px and getattr(scale, "lens", None) is None:
+            reach, edge = edge_reach(g["x_px"].to_numpy(float)[in_plateau],
+                                     g["y_px"].to_numpy(float)[in_plateau],
+                                     frame_width_px, frame_height_px)
+            out["edge_reach_fraction"] = reach
+            if reach > EDGE_WARN_FRACTION:
+                warnings.append(
+                    f"track {out['id']}: the plateau reaches {100 * reach:.0f} % of the way from "
+                    f"the frame centre to its {edge} edge and the rig has no [lens] calibration: "
+                    "lens distortion grows towards the edges and biases the scale there; calibrate "
+                    "with `fallcam lens` and add its [lens] table, or keep the fall region within "
+                    f"{100 * EDGE_WARN_FRACTION:.0f} % of the way to the edges")
         tube_d = rig.tube.inner_diameter_mm
         if tube_d and abs(out["lateral_drift_mm"]) > LATERAL_DRIFT_WARN_FRACTION * tube_d:
             warnings.append(f"track {out['id']}: the sphere drifted {out['lateral_drift_mm']:+.2f} mm "
@@ -288,6 +339,8 @@ def _clip_summary(result: Any, clip_path: Path, rig: Rig, scale: Any, command: s
         "capture_fps": info.capture_fps,
         "timestamps": info.timestamps,
         "px_per_mm": scale.px_per_mm,
+        "lens_corrected": scale.lens is not None,
+        "lens": None if scale.lens is None else scale.lens.to_dict(),
         "scale": scale.to_dict(),
         "rig": rig.to_dict(),
         "reference": None if rig.liquid.state is None else rig.liquid.state.to_dict(),
@@ -373,7 +426,8 @@ def analyze_clip(clip_path: str | Path, rig: Rig, out_dir: str | Path, *, overla
     traj["in_plateau"] = False
     for _, g in traj.groupby("track", sort=True):
         track, v_local, in_plat = _analyze_track(g, rig, scale, marks_z, result.clip.timestamps,
-                                                 height, result.n_frames - 1)
+                                                 height, result.n_frames - 1,
+                                                 int(result.clip.width_px))
         traj.loc[g.index, "v_mm_s"] = v_local
         traj.loc[g.index, "in_plateau"] = in_plat
         track["warnings"] = list(dict.fromkeys(track["warnings"]))

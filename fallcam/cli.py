@@ -39,7 +39,7 @@ __all__ = ["EXIT_INTERRUPTED", "build_parser", "error_line", "exit_code_for", "f
 EXIT_INTERRUPTED = 130
 """Exit status after Ctrl-C (128 + SIGINT, the shell convention)."""
 
-COMMANDS = ("analyze", "track", "series", "batch", "plan", "fluid", "demo")
+COMMANDS = ("analyze", "track", "series", "batch", "plan", "fluid", "demo", "lens")
 _PROG = "fallcam"
 
 
@@ -284,6 +284,29 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (created if needed)")
     _add_common(p)
     p.set_defaults(func=_cmd_demo)
+
+    p = sub.add_parser("lens", usage="%(prog)s CLIP --board COLSxROWS --square-mm S [--out LENS.toml] [options]",
+                       help="calibrate lens distortion from a clip of a checkerboard",
+                       description="Calibrate the camera's lens distortion (Brown–Conrady model, "
+                                   "Zhang's method with OpenCV) from a clip of a printed "
+                                   "checkerboard moved around the view: tilt it, and bring it "
+                                   "to every part of the frame, the corners too. Film at the "
+                                   "same resolution and zoom as the fall clips. Prints the RMS "
+                                   "reprojection error, the views used, how much of the frame "
+                                   "the corners covered, and the [lens] table to paste into the "
+                                   "rig file (or write it with --out).",
+                       epilog="COLSxROWS counts the INNER corners (where four squares meet), e.g. "
+                              "9x6 for a board of 10 × 7 squares. Exit codes: 2 bad arguments, "
+                              "3 clip missing or unreadable, 4 board found in fewer than 5 frames.")
+    p.add_argument("clip", metavar="CLIP", help="the video file of the checkerboard")
+    p.add_argument("--board", required=True, metavar="COLSxROWS",
+                   help="inner corners per row and per column, e.g. 9x6")
+    p.add_argument("--square-mm", required=True, type=float, metavar="S",
+                   help="side of one square, mm (as printed; measure it)")
+    p.add_argument("--out", default=None, metavar="LENS.toml",
+                   help="also write the [lens] table to this file (written atomically)")
+    _add_common(p)
+    p.set_defaults(func=_cmd_lens)
     return parser
 
 
@@ -582,6 +605,60 @@ def _cmd_demo(args: argparse.Namespace, out: TextIO) -> int:
         _print_json(summary, out)
     elif not args.quiet:
         _print_summary(summary, Path(args.out), out)
+    return 0
+
+
+def _board(text: str) -> tuple[int, int]:
+    """``"9x6"`` → (9, 6); UsageError otherwise."""
+    parts = text.lower().replace("×", "x").split("x")
+    try:
+        cols, rows = (int(p) for p in parts)
+    except ValueError:
+        raise UsageError(f"--board {text!r}: expected COLSxROWS, the inner corners per row and "
+                         "column, e.g. 9x6") from None
+    if cols < 2 or rows < 2:
+        raise UsageError(f"--board {text!r}: expected at least 2 inner corners each way, e.g. 9x6")
+    return cols, rows
+
+
+def _cmd_lens(args: argparse.Namespace, out: TextIO) -> int:
+    from fallcam.atomic import atomic_write_text
+    from fallcam.progress import progress_bar
+
+    board = _board(args.board)
+    if not (math.isfinite(args.square_mm) and args.square_mm > 0):
+        raise UsageError(f"--square-mm {args.square_mm:g}: expected the side of a square > 0 mm")
+    if args.out is not None and Path(args.out).is_dir():
+        raise UsageError(f"--out {args.out}: is a folder; expected a file name for the [lens] table")
+    clip = require_clip(args.clip)
+    from tracker.lens import calibrate_clip
+
+    with progress_bar(clip.name, quiet=args.quiet) as bar:
+        cal = calibrate_clip(clip, board, args.square_mm, progress=bar)
+    table = cal.to_toml(clip.name)
+    if args.out is not None:
+        atomic_write_text(args.out, table)
+    if args.json:
+        result = cal.to_dict()
+        result["toml"] = table
+        result["out"] = args.out
+        _print_json(result, out)
+        return 0
+    if not args.quiet:
+        out.write(f"{clip.name}: {cal.lens.image_size_px[0]}×{cal.lens.image_size_px[1]} px, "
+                  f"board {board[0]}×{board[1]} inner corners found in {cal.n_found} of "
+                  f"{cal.n_tried} frames searched; {cal.n_views} views used\n"
+                  f"  RMS reprojection error {cal.rms_px:.3f} px (worst view "
+                  f"{max(cal.per_view_rms_px):.3f} px)\n"
+                  f"  corners covered {100 * cal.coverage_fraction:.0f} % of the frame "
+                  f"({100 * cal.outer_coverage_fraction:.0f} % of its outer border) and reached "
+                  f"{100 * cal.reach_fraction:.0f} % of the way to the corners\n")
+        _print_warnings(cal.warnings, out)
+        out.write("\n" + table)
+        if args.out is not None:
+            out.write(f"\n[lens] table written to {args.out}; paste it into the rig file\n")
+    elif args.out is None:  # --quiet: the table still goes to stdout when it is written nowhere
+        out.write(table)
     return 0
 
 

@@ -526,9 +526,27 @@ def _clip_section(summary: Mapping[str, Any]) -> str:
             ("refraction factor", _fmt(scale.get("refraction_factor"), ".6g")),
             ("scale at the ball's plane", f"{format_measurement(px_per_mm, scale.get('px_per_mm_u'))}"
                                           " px/mm"),
+            ("lens distortion correction", _e(_lens_text(scale))),
         ]
         parts.append("<h3>Scale</h3>" + _pairs_table(sfacts, escape_values=False))
     return "\n".join(parts)
+
+
+def _lens_text(scale: Mapping[str, Any]) -> str:
+    """One line on the lens-distortion correction (the rig's ``[lens]`` table)."""
+    lens = scale.get("lens")
+    if not scale.get("lens_corrected") or not isinstance(lens, Mapping):
+        return "none (no [lens] table in the rig)"
+    size = lens.get("image_size_px") or ["?", "?"]
+    k = lens.get("radial_coefficients") or []
+    p = lens.get("tangential_coefficients") or []
+    f = lens.get("focal_length_px") or []
+    c = lens.get("principal_point_px") or []
+    return (f"applied (Brown–Conrady, calibrated at {size[0]}×{size[1]} px): "
+            f"k1, k2, k3 = {', '.join(_plain(v, '.4g') for v in k)}; "
+            f"p1, p2 = {', '.join(_plain(v, '.4g') for v in p)}; "
+            f"f = {', '.join(_plain(v, '.6g') for v in f)} px; "
+            f"c = {', '.join(_plain(v, '.6g') for v in c)} px")
 
 
 def _safety_section() -> str:

@@ -1,7 +1,8 @@
 """Rig files (TOML) and manifests (CSV): strict validation, command-line overrides, resolved values.
 
 A rig file describes one apparatus and one liquid (INTERFACE.md "Rig file"), in the tables
-``[liquid] [ball] [tube] [scale] [camera] [marks] [site]`` plus our ``[analysis]`` table. Every key
+``[liquid] [ball] [tube] [scale] [camera] [marks] [site]`` plus our ``[analysis]`` and optional
+``[lens]`` (lens-distortion model from ``fallcam lens``, :mod:`tracker.lens`) tables. Every key
 carries its unit in its name; ``*_u_*`` keys are standard uncertainties (k = 1). Unknown tables
 and keys are errors with a "did you mean". :func:`load_rig` returns a :class:`Rig` of frozen
 dataclasses whose values are *resolved*: a liquid ``model`` gives the density (and a reference
@@ -34,6 +35,7 @@ from fallcam.errors import UsageError
 from physics import fluids, materials
 from physics.drag import DRAG_LAWS, WALL_MODELS
 from physics.gravity import STANDARD_GRAVITY_M_S2, local_gravity
+from tracker.lens import LensModel
 from tracker.scale import PLANES, Scale
 
 __all__ = [
@@ -48,6 +50,7 @@ __all__ = [
     "Marks",
     "Site",
     "Analysis",
+    "LensModel",
     "Rig",
     "ManifestRow",
     "load_rig",
@@ -62,13 +65,19 @@ __all__ = [
 
 @dataclass(frozen=True)
 class _Key:
-    kind: str  # "number" | "choice" | "grade" | "point_pair" | "point_list"
+    kind: str  # "number" | "choice" | "grade" | "point_pair" | "point_list" | "numbers" | "size"
     doc: str
     unit: str = ""
     lo: float | None = None
     hi: float | None = None
     lo_open: bool = False  # True: value must be > lo (else ≥ lo)
     choices: tuple[str, ...] = ()
+    length: int = 0  # "numbers": how many
+
+
+def _nums(doc: str, unit: str, length: int, lo: float | None = None, hi: float | None = None, *,
+          lo_open: bool = False) -> _Key:
+    return _Key("numbers", doc, unit, lo, hi, lo_open, length=length)
 
 
 def _num(doc: str, unit: str, lo: float | None = None, hi: float | None = None, *,
@@ -144,9 +153,21 @@ SCHEMA: dict[str, dict[str, _Key]] = {
                                  0.5, 2.0),
         "apparatus_factor_u": _num("standard uncertainty of the apparatus factor", "1", **_NONNEG),
     },
+    "lens": {
+        "image_size_px": _Key("size", "width and height of the frame the calibration was made at",
+                              "px"),
+        "focal_length_px": _nums("focal lengths f_x, f_y", "px", 2, **_POS),
+        "principal_point_px": _nums("principal point c_x, c_y in the displayed frame", "px", 2),
+        "radial_coefficients": _nums("radial distortion coefficients k1, k2, k3", "", 3,
+                                     -10.0, 10.0),
+        "tangential_coefficients": _nums("tangential distortion coefficients p1, p2", "", 2,
+                                         -1.0, 1.0),
+    },
 }
 
 _REQUIRED = (("scale", "points_px"), ("scale", "distance_mm"))
+_LENS_REQUIRED = ("image_size_px", "focal_length_px", "principal_point_px", "radial_coefficients")
+_MAX_FRAME_PX = 16384
 
 
 @dataclass(frozen=True)
@@ -295,6 +316,19 @@ def _check_value(value: Any, spec: _Key, where: str) -> Any:
         if not isinstance(value, (list, tuple)) or len(value) != 2:
             raise UsageError(f"{where} = {value!r} must be two points [[x1, y1], [x2, y2]] in pixels")
         return tuple(_check_point(p, where) for p in value)
+    if spec.kind == "numbers":
+        if not isinstance(value, (list, tuple)) or len(value) != spec.length:
+            raise UsageError(f"{where} = {value!r} must be a list of {spec.length} numbers "
+                             f"({spec.doc})")
+        item = _Key("number", spec.doc, spec.unit, spec.lo, spec.hi, spec.lo_open)
+        return tuple(_check_number(v, item, f"{where}[{i}]") for i, v in enumerate(value))
+    if spec.kind == "size":
+        if (not isinstance(value, (list, tuple)) or len(value) != 2
+                or not all(isinstance(v, int) and not isinstance(v, bool)
+                           and 8 <= v <= _MAX_FRAME_PX for v in value)):
+            raise UsageError(f"{where} = {value!r} must be [width, height] in whole pixels "
+                             f"(8 to {_MAX_FRAME_PX})")
+        return int(value[0]), int(value[1])
     if spec.kind == "point_list":
         if not isinstance(value, (list, tuple)) or len(value) == 0:
             raise UsageError(f"{where} = {value!r} must be a list of points [[x, y], ...] in pixels")
@@ -576,6 +610,8 @@ class Rig:
         The override values that were applied, by flat name.
     warnings : list of str
         Problems the user should know about (missing uncertainties, inconsistent inputs).
+    lens : tracker.lens.LensModel or None
+        The ``[lens]`` table: lens-distortion model applied by the scale (None: no correction).
     """
 
     path: str
@@ -590,9 +626,11 @@ class Rig:
     _scale: Scale = field(repr=False, compare=False)
     overrides: dict[str, Any] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+    lens: LensModel | None = None
 
     def scale(self) -> Scale:
-        """The two-point scale (refraction-corrected when the points are not in the ball's plane).
+        """The two-point scale (refraction-corrected when the points are not in the ball's plane;
+        lens-corrected when the rig has a ``[lens]`` table).
 
         Returns
         -------
@@ -674,6 +712,7 @@ class Rig:
             "marks": self.marks.to_dict(),
             "site": self.site.to_dict(),
             "analysis": self.analysis.to_dict(),
+            "lens": None if self.lens is None else self.lens.to_dict(),
             "overrides": _clean(dict(self.overrides)),
             "warnings": list(self.warnings),
         }
@@ -950,8 +989,22 @@ def _resolve_site(t: dict[str, Any], src: str) -> Site:
     return Site(g_given, lat, alt, g, prov)
 
 
-def _resolve_scale(t: dict[str, Any], tube: Tube, liquid: Liquid, src: str
-                   ) -> tuple[ScaleSpec, Scale]:
+def _resolve_lens(t: dict[str, Any] | None, src: str) -> LensModel | None:
+    if t is None:
+        return None
+    for key in _LENS_REQUIRED:
+        if key not in t:
+            spec = SCHEMA["lens"][key]
+            raise UsageError(f"{src}: missing key [lens] {key} ({spec.doc}); copy the whole table "
+                             "that `fallcam lens` prints")
+    try:
+        return LensModel.from_dict(t)
+    except ValueError as exc:
+        raise UsageError(f"{src}: [lens] {exc}") from None
+
+
+def _resolve_scale(t: dict[str, Any], tube: Tube, liquid: Liquid, src: str,
+                   lens: LensModel | None = None) -> tuple[ScaleSpec, Scale]:
     for table, key in _REQUIRED:
         if key not in t:
             what = SCHEMA[table][key]
@@ -991,7 +1044,7 @@ def _resolve_scale(t: dict[str, Any], tube: Tube, liquid: Liquid, src: str
                       camera_distance_u_mm=spec.camera_distance_u_mm)
     try:
         scale = Scale.from_points(spec.points_px[0], spec.points_px[1], spec.distance_mm,
-                                  spec.distance_u_mm, plane=plane, **optics)
+                                  spec.distance_u_mm, plane=plane, lens=lens, **optics)
     except ValueError as exc:
         raise UsageError(f"{src}: [scale] {exc}") from None
     return spec, scale
@@ -1043,7 +1096,10 @@ def load_rig(path: str | os.PathLike[str], overrides: Mapping[str, Any] | None =
     elif ball.diameter_mm is not None and ball.diameter_mm >= tube.inner_diameter_mm:
         raise UsageError(f"{src}: [ball] diameter_mm = {ball.diameter_mm:g} must be smaller than "
                          f"[tube] inner_diameter_mm = {tube.inner_diameter_mm:g}")
-    scale_spec, scale = _resolve_scale(tables["scale"], tube, liquid, src)
+    lens = _resolve_lens(tables.get("lens"), src)
+    if lens is not None and lens.is_identity:
+        warnings.append("[lens] has all distortion coefficients zero: no lens correction in effect")
+    scale_spec, scale = _resolve_scale(tables["scale"], tube, liquid, src, lens)
     ct = tables.get("camera", {})
     camera = Camera(ct.get("capture_fps"), ct.get("readout_ms", 0.0))
     marks = Marks(tables.get("marks", {}).get("points_px", ()))
@@ -1053,7 +1109,7 @@ def load_rig(path: str | os.PathLike[str], overrides: Mapping[str, Any] | None =
                         at.get("drag_model", "clift-grace-weber"),
                         at.get("apparatus_factor"), at.get("apparatus_factor_u", 0.0))
     return Rig(src, liquid, ball, tube, scale_spec, camera, marks, site, analysis, scale, applied,
-               warnings)
+               warnings, lens)
 
 
 # --------------------------------------------------------------------------------------------
@@ -1254,6 +1310,13 @@ wall_model = "haberman-sayre"     # "haberman-sayre" | "faxen" | "bohlin" | "fra
 drag_model = "clift-grace-weber"  # "clift-grace-weber" | "oseen" | "stokes" | "schiller-naumann" | "proudman-pearson"
 # apparatus_factor = 1.012        # from a calibration run in a reference liquid (its summary's "calibration")
 # apparatus_factor_u = 0.004
+
+# [lens]                          # lens distortion, from `fallcam lens CLIP --board 9x6 --square-mm 20`
+# image_size_px = [1920, 1080]    # frame size the calibration was made at (clips must match)
+# focal_length_px = [1450.0, 1450.0]
+# principal_point_px = [960.0, 540.0]
+# radial_coefficients = [-0.12, 0.05, 0.0]     # k1, k2, k3
+# tangential_coefficients = [0.0, 0.0]         # p1, p2
 """
 
 

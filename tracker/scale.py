@@ -24,6 +24,12 @@ effective value at the ball's plane (own px/mm ÷ factor). Horizontal offsets ar
 magnified about ×n_l by the liquid cylinder (§10), so ``lateral_mm`` is an *apparent* offset, good
 for drift and off-axis checks, not for sizes.
 
+Lens distortion (optional, :mod:`tracker.lens`): with a :class:`tracker.lens.LensModel`, every
+measured (distorted) pixel position is first mapped to its ideal (undistorted) pixel position —
+the two scale points and the timing marks as well as the ball's centre — and the scale, the axis
+and ``to_mm`` work on ideal pixels. ``p1_px``/``p2_px`` stay as given (displayed frame);
+``px_per_mm`` is then in ideal pixels. Without a lens model nothing changes.
+
 Scale uncertainty: u(distance_mm) as given, plus a ±0.5 px click uncertainty per coordinate of
 each point, taken as a rectangular half-width (common practice) → 0.5/√3 px; and, for the
 refraction factor, u(camera_distance_mm) when given.
@@ -37,6 +43,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+
+from tracker.lens import LensModel
 
 __all__ = ["Scale", "PLANES", "CLICK_HALF_WIDTH_PX", "MAX_TILT_WARN_DEG"]
 
@@ -106,6 +114,8 @@ class Scale:
         L_eff of the ball (None for ``"ball-plane"``), mm.
     optics : dict
         The optics inputs used (empty for ``"ball-plane"``).
+    lens : tracker.lens.LensModel or None
+        Lens-distortion model applied before the scale (None: no correction).
     """
 
     p1_px: tuple[float, float]
@@ -122,6 +132,19 @@ class Scale:
     tilt_deg: float = 0.0
     effective_distance_mm: float | None = None
     optics: dict = field(default_factory=dict)
+    lens: LensModel | None = None
+
+    @property
+    def lens_corrected(self) -> bool:
+        """True when a lens-distortion model is applied."""
+        return self.lens is not None
+
+    def undistort_px(self, x_px: float | np.ndarray, y_px: float | np.ndarray
+                     ) -> tuple[np.ndarray, np.ndarray]:
+        """Measured pixel positions → ideal pixel positions (unchanged without a lens model)."""
+        if self.lens is None:
+            return np.asarray(x_px, dtype=float), np.asarray(y_px, dtype=float)
+        return self.lens.undistort_px(x_px, y_px)
 
     @classmethod
     def from_points(cls, p1_px: tuple[float, float], p2_px: tuple[float, float],
@@ -131,7 +154,8 @@ class Scale:
                     liquid_refractive_index: float | None = None,
                     tube_inner_diameter_mm: float | None = None,
                     ruler_offset_mm: float | None = None,
-                    camera_distance_u_mm: float = 0.0) -> Scale:
+                    camera_distance_u_mm: float = 0.0,
+                    lens: LensModel | None = None) -> Scale:
         """Build a scale from two points a known distance apart.
 
         Parameters
@@ -158,6 +182,10 @@ class Scale:
             (negative when in front of it).
         camera_distance_u_mm : float
             u(L), mm, propagated into the refraction factor.
+        lens : tracker.lens.LensModel, optional
+            Lens-distortion model of the displayed frame: the points (given as measured, in the
+            distorted frame) are undistorted before the scale is formed, and so is every
+            position given to :meth:`to_mm`.
 
         Returns
         -------
@@ -175,7 +203,13 @@ class Scale:
         dist_u = _number("distance_u_mm", distance_u_mm, minimum=0.0, strict=False, unit="mm")
         if plane not in PLANES:
             raise ValueError(f"plane = {plane!r} is unknown; expected one of {', '.join(PLANES)}")
-        upper, lower = (p1, p2) if p1[1] <= p2[1] else (p2, p1)
+        if lens is not None and not isinstance(lens, LensModel):
+            raise ValueError(f"lens = {lens!r}: expected a tracker.lens.LensModel or None")
+        q1, q2 = p1, p2
+        if lens is not None:
+            (ux, uy) = lens.undistort_px([p1[0], p2[0]], [p1[1], p2[1]])
+            q1, q2 = (float(ux[0]), float(uy[0])), (float(ux[1]), float(uy[1]))
+        upper, lower = (q1, q2) if q1[1] <= q2[1] else (q2, q1)
         dx, dy = lower[0] - upper[0], lower[1] - upper[1]
         span_px = math.hypot(dx, dy)
         if span_px == 0.0:
@@ -213,7 +247,7 @@ class Scale:
                           + (factor_u / factor) ** 2)
         px_per_mm = own_px_per_mm / factor
         return cls(p1, p2, dist, dist_u, plane, factor, px_per_mm, px_per_mm * u_rel, warnings,
-                   upper, (dx / span_px, dy / span_px), tilt, l_eff, optics)
+                   upper, (dx / span_px, dy / span_px), tilt, l_eff, optics, lens)
 
     @classmethod
     def from_rig(cls, tables: Mapping[str, Mapping[str, Any]]) -> Scale:
@@ -223,7 +257,8 @@ class Scale:
         ----------
         tables : mapping
             At least ``tables["scale"]`` with ``points_px`` and ``distance_mm`` (plus the optional
-            ``[scale]`` keys); ``tables["tube"]["inner_diameter_mm"]`` is used for the optics.
+            ``[scale]`` keys); ``tables["tube"]["inner_diameter_mm"]`` is used for the optics,
+            and an optional ``tables["lens"]`` (``[lens]`` keys) gives the lens model.
             Strict checking of rig files (unknown keys, types) is ``fallcam.rig``'s job.
 
         Returns
@@ -232,6 +267,7 @@ class Scale:
         """
         sc = tables["scale"]
         tube = tables.get("tube", {})
+        lens = LensModel.from_dict(tables["lens"]) if tables.get("lens") else None
         p1, p2 = sc["points_px"]
         return cls.from_points(
             p1, p2, sc["distance_mm"], sc.get("distance_u_mm", 0.0),
@@ -243,6 +279,7 @@ class Scale:
             tube_inner_diameter_mm=tube.get("inner_diameter_mm"),
             ruler_offset_mm=sc.get("ruler_offset_mm"),
             camera_distance_u_mm=sc.get("camera_distance_u_mm", 0.0),
+            lens=lens,
         )
 
     def to_mm(self, x_px: float | np.ndarray, y_px: float | np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -251,7 +288,8 @@ class Scale:
         Parameters
         ----------
         x_px, y_px : float or ndarray of shape (n,)
-            Positions in the displayed frame (origin at the top-left pixel's centre, y down), px.
+            Positions in the displayed frame (origin at the top-left pixel's centre, y down), px,
+            as measured: with a lens model they are undistorted first.
 
         Returns
         -------
@@ -260,8 +298,9 @@ class Scale:
         lateral_mm : ndarray
             Perpendicular to the axis, positive to the right, mm (apparent, see module notes).
         """
-        x = np.asarray(x_px, dtype=float) - self.origin_px[0]
-        y = np.asarray(y_px, dtype=float) - self.origin_px[1]
+        xi, yi = self.undistort_px(x_px, y_px)
+        x = xi - self.origin_px[0]
+        y = yi - self.origin_px[1]
         ex, ey = self.axis_unit
         z_px = x * ex + y * ey
         lateral_px = x * ey - y * ex  # (ey, −ex) is the axis turned towards +x ("to the right")
@@ -304,6 +343,8 @@ class Scale:
             "effective_distance_mm": (None if self.effective_distance_mm is None
                                       else float(self.effective_distance_mm)),
             "optics": {k: float(v) for k, v in self.optics.items()},
+            "lens_corrected": self.lens is not None,
+            "lens": None if self.lens is None else self.lens.to_dict(),
             "warnings": list(self.warnings),
         }
 

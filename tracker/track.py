@@ -680,6 +680,9 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
         The clip cannot be read (from ``tracker.video``).
     tracker.errors.TrackingError
         No usable sphere passage in the clip.
+    tracker.lens.LensMismatchError
+        The scale's lens model was calibrated at another frame size than the clip's (a
+        ``ValueError``).
     ValueError
         ``readout_ms`` negative or not finite, ``expect_direction`` not "down"/"up"/None.
     """
@@ -693,6 +696,9 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
                                              and math.isfinite(ball_diameter_mm) and ball_diameter_mm > 0):
         raise ValueError(f"ball_diameter_mm = {ball_diameter_mm!r}: expected a diameter > 0 in mm")
     info = probe(path, capture_fps=capture_fps)
+    lens = getattr(scale, "lens", None)
+    if lens is not None:  # a calibration holds only for the frame size it was made at
+        lens.check_frame(info.width_px, info.height_px, pathlib.Path(path).name)
     loop = _Loop(info, None if ball_diameter_mm is None else ball_diameter_mm * float(scale.px_per_mm))
     n_frames = 0
     n_dup = 0
