@@ -426,3 +426,68 @@ def test_apparatus_factor_keys(tmp_path):
     bad.write_text(text.replace("apparatus_factor = 1.012", "apparatus_factor = -1.0"), encoding="utf-8")
     with pytest.raises(UsageError, match=r"\[analysis\] apparatus_factor"):
         load_rig(bad)
+
+
+# ---- [lens] ------------------------------------------------------------------------------------
+LENS = """
+[lens]
+image_size_px = [1920, 1080]
+focal_length_px = [1450.0, 1450.0]
+principal_point_px = [960.0, 540.0]
+radial_coefficients = [-0.12, 0.05, 0.0]
+tangential_coefficients = [0.0, 0.0]
+"""
+
+BAD_LENS = [
+    (LENS.replace("focal_length_px", "focal_lenght_px"),
+     r"^rig\.toml: unknown key \[lens\] focal_lenght_px; did you mean focal_length_px\?$"),
+    (LENS.replace("[lens]", "[lense]"), r"^rig\.toml: unknown table \[lense\]; did you mean \[lens\]\?$"),
+    (LENS.replace("[1920, 1080]", "[1920.0, 1080]"),
+     r"^rig\.toml: \[lens\] image_size_px = \[1920\.0, 1080\] must be \[width, height\] in whole pixels \(8 to 16384\)$"),
+    (LENS.replace("[1920, 1080]", "[1920]"),
+     r"^rig\.toml: \[lens\] image_size_px = \[1920\] must be \[width, height\] in whole pixels"),
+    (LENS.replace("[1450.0, 1450.0]", "[1450.0, -1.0]"),
+     r"^rig\.toml: \[lens\] focal_length_px\[1\] = -1 must be > 0 px$"),
+    (LENS.replace("[1450.0, 1450.0]", "1450.0"),
+     r"^rig\.toml: \[lens\] focal_length_px = 1450\.0 must be a list of 2 numbers \(focal lengths f_x, f_y\)$"),
+    (LENS.replace("[-0.12, 0.05, 0.0]", "[-0.12, 0.05]"),
+     r"^rig\.toml: \[lens\] radial_coefficients = \[-0\.12, 0\.05\] must be a list of 3 numbers \(radial distortion coefficients k1, k2, k3\)$"),
+    (LENS.replace("[-0.12, 0.05, 0.0]", '[-0.12, "x", 0.0]'),
+     r"^rig\.toml: \[lens\] radial_coefficients\[1\] = 'x' must be a number$"),
+    (LENS.replace("[-0.12, 0.05, 0.0]", "[-0.12, 0.05, 50.0]"),
+     r"^rig\.toml: \[lens\] radial_coefficients\[2\] = 50 is out of range; expected -10 to 10$"),
+    (LENS.replace("[-0.12, 0.05, 0.0]", "[-0.9, 0.0, 0.0]"),
+     r"^rig\.toml: \[lens\] radial_coefficients = \[-0\.9, 0\.0, 0\.0\] fold the image back on itself at \d+ % of the way"),
+    (LENS.replace("[960.0, 540.0]", "[960.0, 1540.0]"),
+     r"^rig\.toml: \[lens\] principal_point_px = \[960\.0, 1540\.0\] must lie inside the 1920×1080 frame"),
+    (LENS.replace("principal_point_px = [960.0, 540.0]\n", ""),
+     r"^rig\.toml: missing key \[lens\] principal_point_px \(principal point c_x, c_y in the displayed frame\); copy the whole table"),
+]
+
+
+@pytest.mark.parametrize("text, message", BAD_LENS)
+def test_bad_lens_table_message(rig_in, text, message):
+    with pytest.raises(UsageError, match=message) as info:
+        load_rig(rig_in(SCALE + text))
+    assert "\n" not in str(info.value) and info.value.exit_code == 2
+
+
+def test_lens_table_reaches_the_scale_and_the_marks(rig_in):
+    plain = load_rig(rig_in(SCALE + "[marks]\npoints_px = [[500.0, 400.0]]\n", "plain.toml"))
+    rig = load_rig(rig_in(SCALE + "[marks]\npoints_px = [[500.0, 400.0]]\n" + LENS))
+    assert plain.lens is None and not plain.scale().lens_corrected
+    assert rig.lens.image_size_px == (1920, 1080) and rig.lens.tangential_coefficients == (0.0, 0.0)
+    scale = rig.scale()
+    assert scale.lens is rig.lens
+    # the scale points were undistorted: the same clicked points give another px/mm
+    ux, uy = rig.lens.undistort_px([500.0, 500.0], [100.0, 700.0])
+    assert scale.px_per_mm == pytest.approx(math.hypot(ux[1] - ux[0], uy[1] - uy[0]) / 300.0, rel=1e-12)
+    assert abs(scale.px_per_mm / plain.scale().px_per_mm - 1) > 0.005
+    # marks go through the same correction
+    mx, my = rig.lens.undistort_px(500.0, 400.0)
+    assert rig.marks_z_mm()[0] == pytest.approx(float(scale.to_mm(500.0, 400.0)[0]), rel=1e-12)
+    assert rig.marks_z_mm()[0] != pytest.approx(float(plain.marks_z_mm()[0]), rel=1e-4)
+    assert json.loads(json.dumps(rig.to_dict()))["lens"]["focal_length_px"] == [1450.0, 1450.0]
+    # tangential coefficients are optional
+    rig2 = load_rig(rig_in(SCALE + LENS.replace("tangential_coefficients = [0.0, 0.0]\n", ""), "t.toml"))
+    assert rig2.lens.tangential_coefficients == (0.0, 0.0)
