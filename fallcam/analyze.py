@@ -44,10 +44,14 @@ TRANSIENT_MAX_POINTS = 60
 #: Lateral drift over the plateau above this fraction of the tube diameter is reported.
 LATERAL_DRIFT_WARN_FRACTION = 0.05
 #: Without a ``[lens]`` calibration, a plateau reaching farther than this fraction of the way
-#: from the frame centre to an edge (horizontally or vertically) is reported: lens distortion
-#: grows towards the edges, so keep the measured region in the central part of the frame
-#: (common practice, no source; not a published value).
+#: from the frame centre to its corners is reported: lens distortion is radial and grows with the
+#: distance from the centre, so keep the measured region out of the outer part of the frame
+#: (common practice, no source; not a published value). A vertical path through the centre of a
+#: landscape frame reaches at most ~50 %; one along a portrait frame's full height ~87 %.
 EDGE_WARN_FRACTION = 0.8
+#: Corner distortion of the reference lens behind ``distortion_sensitivity`` (1 % barrel).
+_REFERENCE_CORNER_DISTORTION = 0.01
+
 
 def _versions() -> dict[str, str]:
     out = {"fallcam": __version__, "python": platform.python_version()}
@@ -75,9 +79,8 @@ def _track(clip_path: Path, rig: Rig, progress: Progress | None) -> Any:
         raise UsageError(f"{rig.path}: {exc}") from None
 
 
-def edge_reach(x_px: np.ndarray, y_px: np.ndarray, width_px: int, height_px: int
-               ) -> tuple[float, str]:
-    """How far points get from the frame centre towards its edges.
+def edge_reach(x_px: np.ndarray, y_px: np.ndarray, width_px: int, height_px: int) -> float:
+    """How far points get from the frame centre towards its corners.
 
     Parameters
     ----------
@@ -88,18 +91,64 @@ def edge_reach(x_px: np.ndarray, y_px: np.ndarray, width_px: int, height_px: int
 
     Returns
     -------
-    (float, str)
-        The largest of |x − c_x| / c_x and |y − c_y| / c_y (0 at the centre, 1 at the outer
-        pixel centres) and the edge it was reached towards (``"top"``, ``"bottom"``, ``"left"``,
-        ``"right"``).
+    float
+        The largest distance from the frame centre over the half-diagonal (0 at the centre, 1 at
+        the outer pixel centres of the corners).
     """
     cx, cy = (width_px - 1) / 2.0, (height_px - 1) / 2.0
-    fx = (np.asarray(x_px, float) - cx) / cx
-    fy = (np.asarray(y_px, float) - cy) / cy
-    ix, iy = int(np.argmax(np.abs(fx))), int(np.argmax(np.abs(fy)))
-    if abs(fx[ix]) >= abs(fy[iy]):
-        return float(abs(fx[ix])), "right" if fx[ix] > 0 else "left"
-    return float(abs(fy[iy])), "bottom" if fy[iy] > 0 else "top"
+    r = np.hypot(np.asarray(x_px, float) - cx, np.asarray(y_px, float) - cy)
+    return float(np.max(r) / math.hypot(cx, cy)) if r.size else 0.0
+
+
+def distortion_sensitivity(t_s: np.ndarray, x_px: np.ndarray, y_px: np.ndarray,
+                           scale_px: tuple[tuple[float, float], tuple[float, float]],
+                           width_px: int, height_px: int) -> float:
+    """Relative error of a terminal velocity fitted to these points, with the scale from
+    ``scale_px``, if the lens had a barrel distortion of 1 % at the frame corners (uncorrected).
+
+    The reference lens is pure radial about the frame centre, r_d = r (1 − 0.01 (r/R)²) with R
+    the half-diagonal; to first order an ideal position is c + (p − c)(1 + 0.01 (|p − c|/R)²).
+    The velocity is a least-squares slope of the position along the scale axis against time, as
+    the plateau fit takes it (it weights the middle of the stretch most, so the ratio of the
+    end points' distances would not do); the true one is the measured one × (slope of the ideal
+    positions ÷ slope of the measured ones) ÷ (ideal ÷ measured distance of the scale points).
+
+    Parameters
+    ----------
+    t_s, x_px, y_px : ndarray
+        Times (s) and positions in the displayed frame (px) of the plateau's points.
+    scale_px : ((x, y), (x, y))
+        The two scale points, px.
+    width_px, height_px : int
+        Displayed frame size, px.
+
+    Returns
+    -------
+    float
+        Measured ÷ true velocity − 1 for 1 % of corner distortion (0.002: v_t reads 0.2 % high
+        for each % of barrel distortion at the corners); 0 with fewer than 2 points.
+    """
+    c = np.array([(width_px - 1) / 2.0, (height_px - 1) / 2.0])
+    r2 = float(c @ c)
+
+    def ideal(p: np.ndarray) -> np.ndarray:
+        d = p - c
+        return c + d * (1.0 + _REFERENCE_CORNER_DISTORTION * (d * d).sum(axis=1, keepdims=True) / r2)
+
+    s = np.asarray(scale_px, float)
+    span = float(np.hypot(*(s[1] - s[0])))
+    t = np.asarray(t_s, float)
+    if span <= 0 or t.size < 2 or np.ptp(t) <= 0:
+        return 0.0
+    axis = (s[1] - s[0]) / span
+    pts = np.column_stack([np.asarray(x_px, float), np.asarray(y_px, float)])
+    tc = t - t.mean()
+    slope_measured = float(tc @ (pts @ axis)) / float(tc @ tc)
+    slope_ideal = float(tc @ (ideal(pts) @ axis)) / float(tc @ tc)
+    if slope_ideal == 0.0:
+        return 0.0
+    si = ideal(s)
+    return slope_measured / slope_ideal * float(np.hypot(*(si[1] - si[0]))) / span - 1.0
 
 
 def _exclusion_zones(g: pd.DataFrame, rig: Rig, frame_height_px: int,
@@ -230,6 +279,7 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
         "wall_factor": None, "corrections": {}, "budget": None, "transient": None,
         "comparison": None, "calibration": None, "velocity_fit": None,
         "lateral_offset_mm": None, "lateral_drift_mm": None, "edge_reach_fraction": None,
+        "distortion_sensitivity": None,
         "warnings": warnings,
     }
     in_plateau = np.asarray(plat.mask, bool)
@@ -245,17 +295,20 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
         out["lateral_offset_mm"] = float(np.mean(lat))
         out["lateral_drift_mm"] = float(lat[-1] - lat[0])
         if frame_width_px and getattr(scale, "lens", None) is None:
-            reach, edge = edge_reach(g["x_px"].to_numpy(float)[in_plateau],
-                                     g["y_px"].to_numpy(float)[in_plateau],
-                                     frame_width_px, frame_height_px)
-            out["edge_reach_fraction"] = reach
-            if reach > EDGE_WARN_FRACTION:
+            xp = g["x_px"].to_numpy(float)[in_plateau]
+            yp = g["y_px"].to_numpy(float)[in_plateau]
+            out["edge_reach_fraction"] = edge_reach(xp, yp, frame_width_px, frame_height_px)
+            sens = distortion_sensitivity(t[in_plateau], xp, yp, (scale.p1_px, scale.p2_px),
+                                          frame_width_px, frame_height_px)
+            out["distortion_sensitivity"] = sens
+            if out["edge_reach_fraction"] > EDGE_WARN_FRACTION:
                 warnings.append(
-                    f"track {out['id']}: the plateau reaches {100 * reach:.0f} % of the way from "
-                    f"the frame centre to its {edge} edge and the rig has no [lens] calibration: "
-                    "lens distortion grows towards the edges and biases the scale there; calibrate "
-                    "with `fallcam lens` and add its [lens] table, or keep the fall region within "
-                    f"{100 * EDGE_WARN_FRACTION:.0f} % of the way to the edges")
+                    f"track {out['id']}: the plateau reaches {100 * out['edge_reach_fraction']:.0f} % "
+                    "of the way from the frame centre to its corners and the rig has no [lens] "
+                    f"calibration: each 1 % of barrel lens distortion at the corners would make v_t "
+                    f"read {100 * sens:+.2f} %; calibrate with `fallcam lens` and add its [lens] "
+                    f"table, or keep the fall region within {100 * EDGE_WARN_FRACTION:.0f} % of the "
+                    "way to the corners")
         tube_d = rig.tube.inner_diameter_mm
         if tube_d and abs(out["lateral_drift_mm"]) > LATERAL_DRIFT_WARN_FRACTION * tube_d:
             warnings.append(f"track {out['id']}: the sphere drifted {out['lateral_drift_mm']:+.2f} mm "

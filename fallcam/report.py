@@ -291,6 +291,12 @@ def _track_section(track: Mapping[str, Any], summary: Mapping[str, Any], several
                        ("lateral_drift_mm", "sideways drift over the passage")):
         if finite_or_none(track.get(key)) is not None:
             facts.append((label, f"{_fmt(track[key], '.2f')} mm"))
+    if finite_or_none(track.get("distortion_sensitivity")) is not None:
+        facts.append(("lens distortion sensitivity (no [lens] calibration)",
+                      f"v<sub>t</sub> {100 * track['distortion_sensitivity']:+.2f} % per 1 % of barrel "
+                      f"distortion at the frame corners; the plateau reaches "
+                      f"{_fmt(100 * (track.get('edge_reach_fraction') or 0.0), '.0f')} % of the way "
+                      "to the corners"))
     parts.append(_pairs_table(facts, escape_values=False))
     parts.append(_corrections_table(track.get("corrections") or {}))
     budget = track.get("budget")

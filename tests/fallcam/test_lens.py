@@ -259,7 +259,7 @@ BALL_C = ((BALL_SIZE[0] - 1) / 2.0, (BALL_SIZE[1] - 1) / 2.0)
 BALL_K = (-0.10, 0.02, 0.0)              # a phone's barrel: −5.6 % at the corners
 BALL_P = (0.0, 0.0)
 BALL_SPEC = synth.ClipSpec(width_px=BALL_SIZE[0], height_px=BALL_SIZE[1], duration_s=1.9,
-                           px_per_mm=4.0, axis_x_px=370.0, z0_y_px=80.0, ball_diameter_mm=2.5,
+                           px_per_mm=4.0, axis_x_px=400.0, z0_y_px=80.0, ball_diameter_mm=2.5,
                            terminal_velocity_mm_s=80.0, tube_inner_diameter_mm=44.0, seed=23)
 LIQUID = {"density_kg_m3": 1255.0, "temperature_c": 21.0}
 BALL = {"density_kg_m3": 7810.0}
@@ -322,8 +322,15 @@ def test_barrel_distortion_biases_v_t_and_the_lens_table_removes_it(distorted_fa
     assert abs(bias) > 0.005, bias                     # uncorrected: clearly wrong
     assert not biased["lens_corrected"] and biased["lens"] is None
     edge = [w for w in track["warnings"] if "no [lens] calibration" in w]
-    assert len(edge) == 1 and "fallcam lens" in edge[0] and ("top edge" in edge[0] or "bottom edge" in edge[0])
+    assert len(edge) == 1 and "fallcam lens" in edge[0] and "to its corners" in edge[0]
     assert track["edge_reach_fraction"] > 0.8
+    # the distortion sensitivity (v_t error per 1 % of barrel at the corners, from the geometry of
+    # the plateau and the scale points alone) predicts the bias of this lens: −5.6 % at the corners
+    k1, k2, _ = BALL_K
+    r2 = (BALL_C[0] ** 2 + BALL_C[1] ** 2) / (BALL_F[0] * BALL_F[1])
+    corner_barrel_pct = -100.0 * (k1 * r2 + k2 * r2 * r2)
+    predicted = track["distortion_sensitivity"] * corner_barrel_pct
+    assert abs(predicted - bias) < 0.25 * abs(bias), (predicted, bias)
 
     fixed = _analyze(capsys, clip, corrected, tmp_path / "lens")
     (track2,) = fixed["tracks"]
@@ -331,7 +338,7 @@ def test_barrel_distortion_biases_v_t_and_the_lens_table_removes_it(distorted_fa
     assert abs(err) < 0.002, err
     assert fixed["lens_corrected"] and fixed["scale"]["lens_corrected"]
     assert fixed["lens"]["radial_coefficients"] == list(BALL_K)
-    assert not any("no [lens] calibration" in w for w in track2["warnings"])
+    assert not any("no [lens] calibration" in w for w in track2["warnings"] + fixed["warnings"])
     # trajectory pixels stay as measured (the distorted frame); z_mm is corrected
     import pandas as pd
 
@@ -342,7 +349,8 @@ def test_barrel_distortion_biases_v_t_and_the_lens_table_removes_it(distorted_fa
     assert "lens distortion correction" in html and "applied (Brown–Conrady" in html
     assert "none (no [lens] table in the rig)" in (tmp_path / "plain" / "report.html").read_text(
         encoding="utf-8")
-    print(f"v_t: uncorrected {100 * bias:+.3f} %, corrected {100 * err:+.4f} %")
+    print(f"v_t: uncorrected {100 * bias:+.3f} % (predicted {100 * predicted:+.3f} %), "
+          f"corrected {100 * err:+.4f} %, edge reach {track['edge_reach_fraction']:.3f}")
 
 
 def test_track_records_the_lens_and_a_size_mismatch_exits_2(distorted_fall, tmp_path, capsys):
