@@ -199,6 +199,22 @@ def test_lens_command_recovers_the_true_distortion(board_clip, tmp_path, capsys)
     err = _after_similarity(xi, yi, xi_true, yi_true)
     assert float(np.percentile(err, 95)) < 0.35, (float(np.percentile(err, 95)), lens)
     assert float(err.max()) < 1.0, (float(err.max()), lens)
+    # What it leaves in a velocity: vertical stretches anywhere in the frame, the scale taken from
+    # the stretch's own end points, the velocity a least-squares slope over the stretch (as the
+    # plateau fit); measured ≤ 0.011 %, against up to 2.3 % with no correction.
+    def velocity(model, x, ya, yb):
+        y = np.linspace(ya, yb, 200)
+        xi, yi = model.undistort_px(np.full_like(y, x), y)
+        sx, sy = model.undistort_px([x, x], [ya, yb])
+        return np.polyfit(np.arange(200.0), yi, 1)[0] / np.hypot(sx[1] - sx[0], sy[1] - sy[0])
+
+    w, h = CAL_SIZE
+    stretches = [(x, m, h - 1 - m) for x in np.linspace(20, w - 21, 9) for m in (20, 60, 120)]
+    left = [velocity(model, *s) / velocity(true, *s) - 1.0 for s in stretches]
+    # uncorrected: 199 steps over the stretch, the scale its measured length
+    uncorrected = [(1.0 / 199.0) / velocity(true, *s) - 1.0 for s in stretches]
+    assert max(abs(v) for v in left) < 0.0005, left
+    assert max(abs(v) for v in uncorrected) > 0.02
     # without the correction the same points are off by up to tens of pixels
     raw = _after_similarity(xd, yd, xi_true, yi_true)
     assert float(raw.max()) > 20.0
@@ -214,7 +230,9 @@ def test_lens_command_recovers_the_true_distortion(board_clip, tmp_path, capsys)
     assert rig.lens.radial_coefficients == pytest.approx(tuple(lens["radial_coefficients"]),
                                                          rel=1e-8, abs=1e-12)
     print(f"lens: rms {res['rms_px']:.4f} px, undistortion error p95 "
-          f"{float(np.percentile(err, 95)):.3f} px, max {float(err.max()):.3f} px")
+          f"{float(np.percentile(err, 95)):.3f} px, max {float(err.max()):.3f} px, velocity error "
+          f"left ≤ {100 * max(abs(v) for v in left):.4f} % (uncorrected up to "
+          f"{100 * max(abs(v) for v in uncorrected):.2f} %)")
 
 
 def test_lens_command_prints_the_table_and_figures(board_clip, capsys):
