@@ -43,12 +43,16 @@ TIME_BASE_U_REL = {"container": 5e-5, "nominal": 1e-3}
 TRANSIENT_MAX_POINTS = 60
 #: Lateral drift over the plateau above this fraction of the tube diameter is reported.
 LATERAL_DRIFT_WARN_FRACTION = 0.05
-#: Without a ``[lens]`` calibration, a plateau reaching farther than this fraction of the way
-#: from the frame centre to its corners is reported: lens distortion is radial and grows with the
-#: distance from the centre, so keep the measured region out of the outer part of the frame
-#: (common practice, no source; not a published value). A vertical path through the centre of a
-#: landscape frame reaches at most ~50 %; one along a portrait frame's full height ~87 %.
+#: Without a ``[lens]`` calibration, a passage is reported when its plateau reaches farther than
+#: EDGE_WARN_FRACTION of the way from the frame centre to its corners (lens distortion is radial
+#: and grows with the distance from the centre) *and* its v_t would move by more than
+#: DISTORTION_WARN_SENSITIVITY per 1 % of barrel distortion at the corners (its scale points and
+#: plateau lie at different distances from the centre, so the distortion does not cancel). Both
+#: thresholds are common practice, no source; not published values. A vertical path through the
+#: centre of a landscape frame reaches at most ~50 %; one along a portrait frame's full height
+#: ~87 %, where a scale taken along the same stretch keeps the sensitivity small.
 EDGE_WARN_FRACTION = 0.8
+DISTORTION_WARN_SENSITIVITY = 0.001
 #: Corner distortion of the reference lens behind ``distortion_sensitivity`` (1 % barrel).
 _REFERENCE_CORNER_DISTORTION = 0.01
 
@@ -301,14 +305,14 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
             sens = distortion_sensitivity(t[in_plateau], xp, yp, (scale.p1_px, scale.p2_px),
                                           frame_width_px, frame_height_px)
             out["distortion_sensitivity"] = sens
-            if out["edge_reach_fraction"] > EDGE_WARN_FRACTION:
+            if out["edge_reach_fraction"] > EDGE_WARN_FRACTION and abs(sens) > DISTORTION_WARN_SENSITIVITY:
                 warnings.append(
                     f"track {out['id']}: the plateau reaches {100 * out['edge_reach_fraction']:.0f} % "
                     "of the way from the frame centre to its corners and the rig has no [lens] "
                     f"calibration: each 1 % of barrel lens distortion at the corners would make v_t "
                     f"read {100 * sens:+.2f} %; calibrate with `fallcam lens` and add its [lens] "
                     f"table, or keep the fall region within {100 * EDGE_WARN_FRACTION:.0f} % of the "
-                    "way to the corners")
+                    "way to the corners and take the scale along it")
         tube_d = rig.tube.inner_diameter_mm
         if tube_d and abs(out["lateral_drift_mm"]) > LATERAL_DRIFT_WARN_FRACTION * tube_d:
             warnings.append(f"track {out['id']}: the sphere drifted {out['lateral_drift_mm']:+.2f} mm "
@@ -322,10 +326,14 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
     if marks_z_mm.size and fit is not None:
         mres = marks.mark_crossings(t, z, marks_z_mm, terminal=fit, plateau=plat)
         out["marks"] = [m.to_dict() for m in mres]
+        sign = 1.0 if fit.direction == "down" else -1.0
         for m in mres:
             if m.crossing_s is not None and not m.terminal_at_mark:
-                warnings.append(f"track {out['id']}: mark {m.index} was crossed before terminal "
-                                f"speed (velocity deficit {100 * (m.velocity_deficit or 0):.2g} %)")
+                before = plat.start_mm is not None and sign * (m.z_mm - plat.start_mm) < 0
+                where = ("before the plateau starts, where terminal speed is not proven" if before
+                         else "where the local speed differs from v_t beyond its uncertainty")
+                warnings.append(f"track {out['id']}: mark {m.index} was crossed {where} (local "
+                                f"speed {-100 * (m.velocity_deficit or 0):+.2g} % from v_t)")
         pairs = marks.stopwatch_comparison(mres, terminal=fit)
         out["stopwatch"] = {"pairs": [p.to_dict() for p in pairs]} if pairs else None
 

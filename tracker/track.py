@@ -96,6 +96,9 @@ _TENTATIVE_MISSES = 2
 _CROP_STEP_DIAMETERS = 0.8
 # Bubble: a silhouette whose filled hole (bright core) is larger than this fraction.
 _BUBBLE_HOLE_FRACTION = 0.25
+# A whole sphere's measured height stays within this fraction of its passage's (see
+# _height_tolerance); a partly hidden one falls short.
+_PARTIAL_HEIGHT_FRACTION = 0.06
 # Reflection: a passage seen in the same frames as a stronger one (this fraction of its points),
 # at a constant offset along the motion below this many diameters, speeds within this fraction.
 _REFLECTION_OVERLAP = 0.5
@@ -209,6 +212,7 @@ class _Track:
         self._levels: list[float] = []
         self._sizes: list[tuple[float, float, float]] = []
         self._size = (0.0, 0.0, 0.0)
+        self._v_spread = 0.0
         self._level: float | None = None
         self._velocity = (0.0, 0.0)
         self._add_stats(point.m)
@@ -224,6 +228,7 @@ class _Track:
         del self._sizes[:-50]
         h, v, b = zip(*self._sizes)
         self._size = (float(statistics.median(h)), float(statistics.median(v)), float(statistics.median(b)))
+        self._v_spread = 1.4826 * float(statistics.median(abs(x - self._size[1]) for x in v))
         self._velocity = self._fit_velocity()
 
     @property
@@ -241,6 +246,10 @@ class _Track:
 
     def diameter(self) -> float:
         return max(self._size[0], self._size[1])
+
+    def whole(self, diameter_v_px: float) -> bool:
+        """True when a measured height fits the recent ones (a sphere partly hidden is not)."""
+        return abs(diameter_v_px - self._size[1]) <= _height_tolerance(self._size[1], self._v_spread)
 
     def add(self, point: _Point) -> None:
         if self.misses:
@@ -329,6 +338,8 @@ def _stitch(tracks: list[_Track]) -> list[_Track]:
             tol = 0.75 * d + 2.0 + 0.1 * math.hypot(vx, vy) * gap_s
             if math.hypot(px - tr.points[0].x, py - tr.points[0].y) <= tol and \
                     abs(prev.diameter() - tr.diameter()) <= 0.35 * d:
+                prev.longest_gap = max(prev.longest_gap, tr.longest_gap,
+                                       tr.points[0].frame - prev.points[-1].frame - 1)
                 prev.points.extend(tr.points)
                 prev.n_gaps_bridged += tr.n_gaps_bridged + 1
                 prev.end_reason = tr.end_reason
@@ -352,8 +363,38 @@ def _trim_rest(tr: _Track) -> None:
     k = len(pts) - 1
     while k > 0 and math.hypot(pts[k - 1].x - last.x, pts[k - 1].y - last.y) <= radius:
         k -= 1
-    if last.t_frame - pts[k].t_frame >= 0.3:
+    # A slow sphere also stays within `radius` for a while: a stop must last 0.3 s and three
+    # times what the passage's own typical speed (before its last fifth) needs to cross `radius`.
+    body = pts[: max(2, (4 * len(pts)) // 5)]
+    speeds = [math.hypot(b.x - a.x, b.y - a.y) / (b.t_frame - a.t_frame)
+              for a, b in zip(body[:-5:5], body[5::5]) if b.t_frame > a.t_frame]
+    typical_px_s = statistics.median(speeds) if speeds else 0.0
+    need_s = max(0.3, 3.0 * radius / typical_px_s) if typical_px_s > 0 else 0.3
+    if last.t_frame - pts[k].t_frame >= need_s:
         tr.points = pts[: k + 1]
+
+
+def _height_tolerance(height_px: float, spread_px: float) -> float:
+    """Largest departure of a whole sphere's measured height from its passage's, px: 6 % or four
+    robust σ of the passage's own scatter, whichever is larger, plus 0.3 px."""
+    return max(_PARTIAL_HEIGHT_FRACTION * height_px, 4.0 * spread_px) + 0.3
+
+
+def _drop_partly_hidden(tr: _Track) -> None:
+    """Drop the points where the sphere was partly hidden (its height short of the passage's).
+
+    While a passage is followed, such points are refused (``_Track.whole``); this catches those
+    of a fragment that began half hidden (a sphere emerging from behind a label, picked up anew
+    and joined by ``_stitch``) and the first ones before the passage's size was known.
+    """
+    heights = np.array([p.m.diameter_v_px for p in tr.points])
+    if heights.size < _MIN_POINTS:
+        return
+    med = float(np.median(heights))
+    spread = 1.4826 * float(np.median(np.abs(heights - med)))
+    keep = np.abs(heights - med) <= _height_tolerance(med, spread)
+    if not keep.all():
+        tr.points = [p for p, k in zip(tr.points, keep) if k]
 
 
 def _coherent(tr: _Track) -> bool:
@@ -578,7 +619,9 @@ class _Loop:
             gate = 2.0 + 0.5 * max(dh, dv) + (hx - dh / 2.0)
             ok = math.hypot(m.x_px - self.shift[0] - px, m.y_px - self.shift[1] - py) <= gate
             if ok and tr.confirmed:
-                ok = 0.6 * dh <= m.diameter_h_px <= 1.6 * dh + 1.0
+                # a sphere partly hidden by something in front of it (a label, a clamp, glare)
+                # loses height on one side and its centroid moves: a gap, not a point
+                ok = 0.6 * dh <= m.diameter_h_px <= 1.6 * dh + 1.0 and tr.whole(m.diameter_v_px)
         if ok and m is not None:
             tr.add(self._point(index, t, m))
             self._keep_crop(tr, luma, m)
@@ -719,6 +762,8 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
     for tr in tracks:
         _trim_rest(tr)
     tracks = [tr for tr in tracks if len(tr.points) >= _MIN_POINTS]
+    for tr in tracks:
+        _drop_partly_hidden(tr)
     tracks = [tr for tr in tracks if _coherent(tr)]
     if not tracks:
         raise TrackingError(f"{name}: no moving sphere found in {n_frames} frames; {_NO_SPHERE}")
