@@ -827,6 +827,13 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
             z, _ = scale.to_mm(last.x, last.y)
             warnings.append(f"track {tracks.index(tr)}: the sphere came to rest at z = {float(z):.1f} mm; "
                             "points after the stop are not part of the track")
+        if any(_overlap(_window(tr.points[0]), blob) for blob in loop.imprints):
+            # lying in view in the first frame, it is in the background model too; that imprint is
+            # replaced only once the sphere has moved clear of it, which this one never did
+            warnings.append(f"track {tracks.index(tr)}: the sphere lay in view in the first frame and "
+                            "never moved clear of where it lay; its own image in the background biases "
+                            "its positions (v_t reads low); start the clip before the release, or film "
+                            "until the sphere has travelled a few diameters")
     if n_dup:
         warnings.append(f"{n_dup} repeated frame(s) skipped")
     return TrackResult(trajectory=trajectory, clip=info, warnings=warnings, n_frames=n_frames,
