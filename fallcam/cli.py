@@ -38,6 +38,9 @@ __all__ = ["EXIT_INTERRUPTED", "build_parser", "error_line", "exit_code_for", "f
 
 EXIT_INTERRUPTED = 130
 """Exit status after Ctrl-C (128 + SIGINT, the shell convention)."""
+EXIT_BROKEN_PIPE = 141
+"""Exit status when the reader of stdout went away (``fallcam … | head``): 128 + SIGPIPE, the
+shell convention; nothing more is printed, and outputs already published stay."""
 
 COMMANDS = ("analyze", "track", "series", "batch", "plan", "fluid", "demo", "lens")
 _PROG = "fallcam"
@@ -718,7 +721,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     -------
     int
         The exit status (INTERFACE.md): 0 ok, 1 internal error, 2 usage, 3 clip unusable,
-        4 no usable track, 130 interrupted. The console script passes it to ``sys.exit``.
+        4 no usable track, 130 interrupted, 141 stdout closed by its reader. The console script
+        passes it to ``sys.exit``.
     """
     out, err = sys.stdout, sys.stderr
     args: argparse.Namespace | None = None
@@ -731,5 +735,35 @@ def main(argv: Sequence[str] | None = None) -> int:
         return func(args, out)
     except SystemExit as exc:  # --help, --version
         return exc.code if isinstance(exc.code, int) else (0 if exc.code is None else EXIT_USAGE)
+    except BrokenPipeError as exc:
+        if not _stdout_gone(out):
+            return _report_error(exc, args, err)
+        return EXIT_BROKEN_PIPE
     except BaseException as exc:  # noqa: BLE001 — every failure becomes one line and a code
         return _report_error(exc, args, err)
+
+
+def _stdout_gone(out: TextIO) -> bool:
+    """True when stdout is a pipe whose reader went away (a broken pipe elsewhere, a socket of a
+    cluster, is a real error); stdout is then pointed at /dev/null so that the interpreter's own
+    final flush stays quiet."""
+    try:
+        fd = out.fileno()
+    except (AttributeError, OSError, ValueError):  # not a real file (in-process callers)
+        fd = None
+    if fd is None:
+        try:
+            out.flush()
+        except BrokenPipeError:
+            return True
+        return False
+    import select
+
+    poller = select.poll()
+    poller.register(fd, select.POLLOUT)
+    if not any(event & select.POLLERR for _, event in poller.poll(0)):
+        return False
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    os.dup2(devnull, fd)
+    os.close(devnull)
+    return True

@@ -450,7 +450,8 @@ def calibrate_clip(path: str | pathlib.Path, board: tuple[int, int], square_mm: 
     per_view = []
     for pts, rv, tv in zip(image_points, rvecs, tvecs):
         proj, _ = cv2.projectPoints(obj, rv, tv, k, dist)
-        per_view.append(float(np.sqrt(np.mean(np.sum((proj - pts) ** 2, axis=2)))))
+        diff = proj.reshape(-1, 2) - np.asarray(pts, float).reshape(-1, 2)
+        per_view.append(float(np.sqrt(np.mean(np.sum(diff ** 2, axis=1)))))
     warnings: list[str] = []
     try:
         lens = LensModel((w, h), (float(k[0, 0]), float(k[1, 1])), (float(k[0, 2]), float(k[1, 2])),

@@ -8,6 +8,7 @@ that use clips rendered by ``tracker.synth`` (these skip until ``fallcam.analyze
 
 import importlib.util
 import json
+import os
 import re
 import subprocess
 import sys
@@ -583,3 +584,13 @@ def test_installed_command_smoke():
     bad_run = subprocess.run([str(script), "fluid", "mud"], capture_output=True, text=True, timeout=60, check=False)
     assert bad_run.returncode == 2
     assert bad_run.stderr.startswith("fallcam: error: fluid: argument NAME: invalid choice: 'mud'")
+    # `fallcam … | head`: the reader has gone before anything is written → 141 (128 + SIGPIPE),
+    # quietly, not an internal error
+    read_end, write_end = os.pipe()
+    os.close(read_end)
+    try:
+        piped = subprocess.run([str(script), "fluid", "water"], stdout=write_end, stderr=subprocess.PIPE,
+                               text=True, timeout=60, check=False)
+    finally:
+        os.close(write_end)
+    assert piped.returncode == 141 and piped.stderr == "", piped.stderr

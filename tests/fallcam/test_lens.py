@@ -177,6 +177,8 @@ def test_lens_command_recovers_the_true_distortion(board_clip, tmp_path, capsys)
     res = json.loads(captured.out)
     assert res["n_views"] == 15 and res["n_found"] == 15
     assert res["rms_px"] < 0.1
+    # every view's own RMS is of the same order as the overall one (no view mismatched)
+    assert len(res["per_view_rms_px"]) == 15 and max(res["per_view_rms_px"]) < 3 * res["rms_px"]
     lens = res["lens"]
     assert lens["image_size_px"] == list(CAL_SIZE)
     # the recovered model maps distorted points (the true lens's picture of a grid of ideal
