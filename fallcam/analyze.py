@@ -27,7 +27,8 @@ import pandas as pd
 from fallcam import __version__
 from fallcam.atomic import atomic_write_json, atomic_write_text, json_ready
 from fallcam.rig import Rig
-from physics import calibration, drag, fluids, marks, plateau, terminal, transient, uncertainty, viscosity
+from physics import (calibration, drag, fluids, marks, plateau, rolling_shutter, terminal, transient,
+                     uncertainty, viscosity)
 from tracker.track import TRAJECTORY_COLUMNS
 
 Progress = Callable[[int, "int | None"], None]
@@ -52,6 +53,9 @@ LATERAL_DRIFT_WARN_FRACTION = 0.05
 #: centre of a landscape frame reaches at most ~50 %; one along a portrait frame's full height
 #: ~87 %, where a scale taken along the same stretch keeps the sensitivity small.
 EDGE_WARN_FRACTION = 0.8
+#: Without ``[camera] readout_ms``, a possible rolling-shutter shift of v_t above this is also
+#: warned about (it is in the budget in any case): the tool's own velocity accuracy aim, 0.2 %.
+ROLLING_SHUTTER_WARN = 0.002
 DISTORTION_WARN_SENSITIVITY = 0.001
 #: Corner distortion of the reference lens behind ``distortion_sensitivity`` (1 % barrel).
 _REFERENCE_CORNER_DISTORTION = 0.01
@@ -195,7 +199,8 @@ def _gravity_u(rig: Rig) -> float:
 
 
 def _budget_inputs(fit: terminal.TerminalFit, rig: Rig, scale: Any, timestamps: str,
-                   fit_dof: float | None) -> uncertainty.ViscosityInputs:
+                   fit_dof: float | None, *, u_rolling_shutter_rel: float = 0.0
+                   ) -> uncertainty.ViscosityInputs:
     ball, liquid, tube = rig.ball, rig.liquid, rig.tube
     rel_scale = scale.px_per_mm_u / scale.px_per_mm
     temperature = liquid.temperature_c if liquid.dlnmu_dT_per_K is not None else None
@@ -210,6 +215,7 @@ def _budget_inputs(fit: terminal.TerminalFit, rig: Rig, scale: Any, timestamps: 
         scale_distance_m=scale.distance_mm * 1e-3,
         u_scale_distance_m=rel_scale * scale.distance_mm * 1e-3,
         u_time_base_rel=TIME_BASE_U_REL.get(timestamps, TIME_BASE_U_REL["nominal"]),
+        u_rolling_shutter_rel=u_rolling_shutter_rel,
         temperature_c=temperature, u_temperature_c=liquid.temperature_u_c if temperature is not None else 0.0,
         dlnmu_dT_per_K=liquid.dlnmu_dT_per_K if temperature is not None else None,
         dof={} if fit_dof is None else {"v_m_s": fit_dof},
@@ -255,9 +261,13 @@ def _transient_points(t: np.ndarray, plat: plateau.Plateau) -> np.ndarray:
 
 def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray,
                    timestamps: str, frame_height_px: int, last_frame: int,
-                   frame_width_px: int | None = None
+                   frame_width_px: int | None = None,
+                   rolling: tuple[np.ndarray, float] | None = None
                    ) -> tuple[dict[str, Any], np.ndarray, np.ndarray]:
-    """Physics of one passage. Returns (track dict, v_mm_s column, in_plateau column)."""
+    """Physics of one passage. Returns (track dict, v_mm_s column, in_plateau column).
+
+    ``rolling``: when the rig does not give the readout time, each point's sensor-row fraction and
+    the longest possible readout (one capture frame interval, s), for the rolling-shutter term."""
     t = g["t_s"].to_numpy(float)
     z = g["z_mm"].to_numpy(float)
     zu = g["z_u_mm"].to_numpy(float)
@@ -283,7 +293,7 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
         "wall_factor": None, "corrections": {}, "budget": None, "transient": None,
         "comparison": None, "calibration": None, "velocity_fit": None,
         "lateral_offset_mm": None, "lateral_drift_mm": None, "edge_reach_fraction": None,
-        "distortion_sensitivity": None,
+        "distortion_sensitivity": None, "rolling_shutter_bound": None,
         "warnings": warnings,
     }
     in_plateau = np.asarray(plat.mask, bool)
@@ -295,6 +305,18 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
         out["terminal_velocity_u_m_s"] = fit.u_v_m_s
         out["direction"] = fit.direction
         out["velocity_fit"] = {k: v for k, v in fit.to_dict().items() if k != "residuals_mm"}
+        if rolling is not None:
+            # readout unknown: anything from 0 (global shutter) to one frame interval, either way
+            # along the fall (the scan direction is not known): ±bound, rectangular, in the budget
+            row_fraction, longest_readout_s = rolling
+            bound = abs(rolling_shutter.velocity_bias(t[in_plateau], z[in_plateau],
+                                                      row_fraction[in_plateau], longest_readout_s))
+            out["rolling_shutter_bound"] = bound
+            if bound > ROLLING_SHUTTER_WARN:
+                warnings.append(
+                    f"track {out['id']}: no [camera] readout_ms: a rolling shutter could shift v_t by up "
+                    f"to ±{100 * bound:.2g} % here (readout up to one frame, {1e3 * longest_readout_s:.1f} ms, "
+                    "along the fall); carried in the budget; give readout_ms (0 for a global shutter)")
         lat = g["lateral_mm"].to_numpy(float)[in_plateau]
         out["lateral_offset_mm"] = float(np.mean(lat))
         out["lateral_drift_mm"] = float(lat[-1] - lat[0])
@@ -361,7 +383,8 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
                                         wall=rig.analysis.wall_model, drag=rig.analysis.drag_model)
         warnings += res.warnings
         budget = uncertainty.viscosity_budget(
-            _budget_inputs(fit, rig, scale, timestamps, fit.effective_points - 2),
+            _budget_inputs(fit, rig, scale, timestamps, fit.effective_points - 2,
+                           u_rolling_shutter_rel=(out["rolling_shutter_bound"] or 0.0) / math.sqrt(3.0)),
             wall=rig.analysis.wall_model, drag=rig.analysis.drag_model)
         mu = res.mu_pa_s * (rig.analysis.apparatus_factor or 1.0)
         out.update({
@@ -486,9 +509,14 @@ def analyze_clip(clip_path: str | Path, rig: Rig, out_dir: str | Path, *, overla
     traj["v_mm_s"] = np.nan
     traj["in_plateau"] = False
     for _, g in traj.groupby("track", sort=True):
-        track, v_local, in_plat = _analyze_track(g, rig, scale, marks_z, result.clip.timestamps,
+        info = result.clip
+        rolling = None
+        if rig.camera.readout_ms is None:
+            rows = info.stored_row(g["x_px"].to_numpy(float), g["y_px"].to_numpy(float))
+            rolling = (np.asarray(rows, float) / info.stored_height_px, 1.0 / info.capture_fps)
+        track, v_local, in_plat = _analyze_track(g, rig, scale, marks_z, info.timestamps,
                                                  height, result.n_frames - 1,
-                                                 int(result.clip.width_px))
+                                                 int(info.width_px), rolling)
         traj.loc[g.index, "v_mm_s"] = v_local
         traj.loc[g.index, "in_plateau"] = in_plat
         track["warnings"] = list(dict.fromkeys(track["warnings"]))

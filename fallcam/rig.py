@@ -530,12 +530,12 @@ class Camera:
     ----------
     capture_fps : float or None
         Capture frame rate of a slow-motion file, frames/s (None: the file's own timing).
-    readout_ms : float
-        Rolling-shutter readout time, ms.
+    readout_ms : float or None
+        Rolling-shutter readout time, ms (0: a global shutter; None: not given, so unknown).
     """
 
     capture_fps: float | None = None
-    readout_ms: float = 0.0
+    readout_ms: float | None = None
 
     def to_dict(self) -> dict:
         """JSON-friendly dict."""
@@ -1101,7 +1101,7 @@ def load_rig(path: str | os.PathLike[str], overrides: Mapping[str, Any] | None =
         warnings.append("[lens] has all distortion coefficients zero: no lens correction in effect")
     scale_spec, scale = _resolve_scale(tables["scale"], tube, liquid, src, lens)
     ct = tables.get("camera", {})
-    camera = Camera(ct.get("capture_fps"), ct.get("readout_ms", 0.0))
+    camera = Camera(ct.get("capture_fps"), ct.get("readout_ms"))
     marks = Marks(tables.get("marks", {}).get("points_px", ()))
     site = _resolve_site(tables.get("site", {}), src)
     at = tables.get("analysis", {})
@@ -1296,7 +1296,8 @@ wall_refractive_index = 1.49      # acrylic (PMMA)
 
 [camera]
 # capture_fps = 240.0             # only for slow-motion files whose stored rate is not the capture rate
-readout_ms = 0.0                  # rolling-shutter readout, top to bottom
+# readout_ms = 20.0               # rolling-shutter readout, top to bottom; 0 for a global shutter;
+                                  # left out: unknown, bounded by one frame in the budget
 
 [marks]                           # optional timing marks (rubber bands), displayed frame
 points_px = [[612.0, 300.0], [612.0, 780.0]]

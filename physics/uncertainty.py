@@ -64,6 +64,7 @@ QUANTITIES: dict[str, tuple[str, str]] = {
     "g_m_s2": ("gravity", "m/s²"),
     "scale_distance_m": ("scale distance", "m"),
     "time_base": ("time base", "1"),
+    "rolling_shutter": ("rolling shutter (readout not given)", "1"),
     "temperature_K": ("liquid temperature", "K"),
     "wall_model": ("wall-factor model", "1"),
     "inertia_model": ("inertia-correction model", "1"),
@@ -93,6 +94,9 @@ class ViscosityInputs:
         Distance between the two scale marks, m; its relative uncertainty acts on v.
     u_time_base_rel : float
         Relative standard uncertainty of the clip's time base (acts on v).
+    u_rolling_shutter_rel : float
+        Relative standard uncertainty of v from an unknown rolling-shutter readout (acts on v;
+        a budget row only when > 0).
     temperature_c, u_temperature_c : float or None, float
         Liquid temperature, °C, when the result is stated at that temperature or compared
         with a model; needs ``dlnmu_dT_per_K``.
@@ -130,6 +134,7 @@ class ViscosityInputs:
     scale_distance_m: float | None = None
     u_scale_distance_m: float = 0.0
     u_time_base_rel: float = 0.0
+    u_rolling_shutter_rel: float = 0.0
     temperature_c: float | None = None
     u_temperature_c: float = 0.0
     dlnmu_dT_per_K: float | None = None
@@ -230,6 +235,8 @@ def _nominal(inputs: ViscosityInputs, wall: str, drag: str) -> dict[str, tuple[f
         "g_m_s2": (require_positive("g_m_s2", inputs.g_m_s2, "a gravitational acceleration in m/s² > 0"), inputs.u_g_m_s2),
         "time_base": (1.0, inputs.u_time_base_rel),
     }
+    if inputs.u_rolling_shutter_rel > 0.0:
+        values["rolling_shutter"] = (1.0, inputs.u_rolling_shutter_rel)
     nominal = infer_viscosity(
         inputs.v_m_s, inputs.d_m, inputs.rho_s_kg_m3, inputs.rho_f_kg_m3,
         tube_d_m=inputs.tube_d_m, g_m_s2=inputs.g_m_s2, wall=wall, drag=drag,
@@ -271,6 +278,8 @@ def _model(
 ) -> Array:
     """μ (Pa·s) of the measurement model at input values ``x`` (scalars or arrays)."""
     v = np.asarray(x["v_m_s"], dtype=float) / np.asarray(x["time_base"], dtype=float)
+    if "rolling_shutter" in x:
+        v = v / np.asarray(x["rolling_shutter"], dtype=float)
     if "scale_distance_m" in x:
         v = v * np.asarray(x["scale_distance_m"], dtype=float) / x0["scale_distance_m"][0]
     sol = force_balance(

@@ -150,3 +150,43 @@ def test_apparatus_factor_from_the_rig_is_applied(tmp_path, capsys):
     assert runs["cal"]["viscosity_pa_s"] == pytest.approx(1.01 * runs["plain"]["viscosity_pa_s"], rel=1e-9)
     assert runs["cal"]["corrections"]["apparatus_factor"] == 1.01
     assert any(r["symbol"] == "apparatus_factor" for r in runs["cal"]["budget"]["rows"])
+
+
+def test_unknown_rolling_shutter_is_bounded_in_the_budget(tmp_path, capsys):
+    """A phone held so that its rows are read along the fall (no rotation), with a 16 ms readout
+    (60 fps: at most one frame, 16.7 ms). Without ``readout_ms`` in the rig v_t reads high by
+    ≈ c·v (physics-references §11); fallcam bounds that on the track's own points with the longest
+    possible readout and carries ±bound (rectangular) in the budget. With ``readout_ms`` given the
+    tracker times every point by its row: no bias and no such budget row."""
+    from dataclasses import replace
+
+    from tracker import synth
+
+    spec = replace(clip_spec(2.0, seed=8), rotation_deg=0, readout_s=0.016)
+    clip = tmp_path / "rolling.mp4"
+    synth.write_clip(spec, clip)
+    v_true = truth_state(2.0)["terminal_velocity_mm_s"] * 1e-3
+    results = {}
+    for given in (False, True):
+        tables = rig_tables(spec)
+        tables["camera"] = {"readout_ms": 16.0} if given else {}
+        if not tables["camera"]:
+            del tables["camera"]
+        rig = tmp_path / f"rig_{given}.toml"
+        rig.write_text(rig_toml(tables), encoding="utf-8")
+        out = tmp_path / f"res_{given}"
+        code, _, err = _run(capsys, ["analyze", str(clip), "--rig", str(rig), "--out", str(out), "--quiet"])
+        assert code == 0, err
+        results[given] = json.loads((out / "summary.json").read_text(encoding="utf-8"))["tracks"][0]
+    unknown, known = results[False], results[True]
+    bias = unknown["terminal_velocity_m_s"] / v_true - 1.0
+    bound = unknown["rolling_shutter_bound"]
+    # c·v: 16.7 ms × 12.2 mm/s over the 960 px / 6 px/mm field ≈ 0.13 %; the actual 16 ms ≈ 0.12 %
+    assert 0.0010 < bound < 0.0020, bound
+    assert 0.8 * bound * 16.0 / 16.7 < bias <= bound * 1.05, (bias, bound)
+    print(f"rolling shutter: bias {100 * bias:+.4f} %, bound {100 * bound:.4f} %")
+    rows = {r["symbol"]: r for r in unknown["budget"]["rows"]}
+    assert rows["rolling_shutter"]["standard_uncertainty"] == pytest.approx(bound / 3 ** 0.5, rel=1e-9)
+    assert known["rolling_shutter_bound"] is None
+    assert "rolling_shutter" not in {r["symbol"] for r in known["budget"]["rows"]}
+    assert abs(known["terminal_velocity_m_s"] / v_true - 1.0) < 0.0002

@@ -44,3 +44,23 @@ def test_motion_against_the_readout_reads_slower():
 def test_bad_input(call, match):
     with pytest.raises(ValueError, match=match):
         call()
+
+
+@pytest.mark.parametrize("direction", [1.0, -1.0])
+def test_velocity_bias_on_points_matches_row25(direction):
+    """#25 (derived, physics-references §11) on sampled points: a ball at 0.10 m/s along (or
+    against) the readout, T_r = 30 ms over a 0.30 m field, seen at 30 frames/s. Each point is
+    where the ball was when its row was read: z = v (t + T_r z/H) → z = v t / (1 − c v). The
+    least-squares speed with plain frame times is v_app = 0.1010101 m/s along the readout, so the
+    bias is +1.010101 %; against it (rows read upwards along the fall) v/(1 + c v): −0.990099 %."""
+    import numpy as np
+
+    v_mm_s, readout_s, field_mm = 100.0 * direction, 0.030, 300.0
+    t = np.arange(9) / 30.0
+    c = readout_s / field_mm
+    z = v_mm_s * t / (1.0 - c * v_mm_s) + (0.0 if direction > 0 else field_mm)   # start at the far end
+    bias = rs.velocity_bias(t, z, z / field_mm, readout_s)
+    expected = 0.1010101 / 0.10 - 1.0 if direction > 0 else 0.0990099 / 0.10 - 1.0
+    assert bias == pytest.approx(expected, rel=1e-5)
+    # across the readout (every point on one row) there is no bias
+    assert rs.velocity_bias(t, z, np.full_like(t, 0.5), readout_s) == pytest.approx(0.0, abs=1e-12)
