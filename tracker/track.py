@@ -835,7 +835,10 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
                             "its positions (v_t reads low); start the clip before the release, or film "
                             "until the sphere has travelled a few diameters")
     if n_dup:
-        warnings.append(f"{n_dup} repeated frame(s) skipped")
+        # a repeated picture carries no new time-position pair; a still scene before the ball
+        # enters, flattened by the codec, repeats too (then it is harmless)
+        warnings.append(f"{n_dup} repeated frame(s) skipped (identical to the frame before: a "
+                        "duplicated frame, or a still scene with nothing moving)")
     return TrackResult(trajectory=trajectory, clip=info, warnings=warnings, n_frames=n_frames,
                        composite=composite, polarity=tracks[0].polarity, readout_ms=float(readout_ms))
 
