@@ -672,6 +672,10 @@ class _Loop:
                            half_height_px=cand.height_px / 2.0 + 1.0)
             if m is None or m.touches_edge or m.area_px < 2.0 or m.diameter_h_px < 1.5:
                 continue
+            # a coarse candidate beside a followed object (its trail in the background, a blob
+            # touching it) can measure as that object itself: never follow one object twice
+            if any(b[0] <= m.x_px <= b[2] and b[1] <= m.y_px <= b[3] for b in excl):
+                continue
             extent_v = m.diameter_v_px + m.blur_px
             if not 0.2 <= extent_v / m.diameter_h_px <= 8.0:
                 continue

@@ -390,3 +390,33 @@ def test_ball_passing_behind_a_label_is_one_passage(tmp_path):
     assert float(np.max(np.hypot(traj["x_px"] - x, traj["y_px"] - y))) < 0.25   # measured 0.10
     assert any("bridged" in w for w in result.warnings)
     assert abs(_velocity_error({"truth": truth, "spec": spec, "result": result})) < V_RTOL_CLEAN / 4
+
+
+def test_an_object_already_followed_is_not_picked_up_again(monkeypatch):
+    """A coarse candidate just outside a followed sphere's window (its trail in the background, a
+    blob touching it) whose measurement lands on the sphere itself must not start a second
+    passage of the same sphere (before the fix: a slow bead was followed three times over, and
+    the longer pieces were then dropped as its "reflections")."""
+    import tracker.track as track_module
+    from tracker.detect import Candidate
+
+    h, w = 240, 320
+    bg = 200.0 + 0.05 * np.arange(w)[None, :] + np.zeros((h, 1))
+    bg[:, 40:46] = 70.0
+    bg[:, 270:276] = 70.0
+
+    def frame(y):
+        occ = _disc(h, w, 160.0, y, 5.0)
+        return np.clip(np.round(bg * (1 - occ) + 25.0 * occ), 0, 255).astype(np.uint8)
+
+    loop = track_module._Loop(info=None)
+    loop.step(0, 0.0, bg.astype(np.uint8))          # the empty scene first
+    for k in range(1, 12):                          # the sphere enters and is followed
+        loop.step(k, k / 30.0, frame(40.0 + 3.0 * k))
+    assert len(loop.active) == 1 and loop.active[0].confirmed
+    t, luma = 12 / 30.0, frame(76.0)
+    box = loop.active[0].box(t, loop.shift, pad=2.0)
+    beside = Candidate(160.0, box[3] + 3.0, "dark", 30.0, 30.0, 1.0)   # just below the window
+    monkeypatch.setattr(loop.bg, "find_candidates", lambda *a, **k: [beside])
+    loop._acquire(12, t, luma)
+    assert len(loop.active) == 1
