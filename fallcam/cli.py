@@ -633,6 +633,9 @@ def _cmd_lens(args: argparse.Namespace, out: TextIO) -> int:
         raise UsageError(f"--square-mm {args.square_mm:g}: expected the side of a square > 0 mm")
     if args.out is not None and Path(args.out).is_dir():
         raise UsageError(f"--out {args.out}: is a folder; expected a file name for the [lens] table")
+    if args.out is not None and not Path(args.out).resolve().parent.is_dir():
+        raise UsageError(f"--out {args.out}: folder {Path(args.out).parent} does not exist; expected "
+                         "a file name in an existing folder")
     clip = require_clip(args.clip)
     from tracker.lens import calibrate_clip
 
@@ -698,7 +701,10 @@ def _report_error(exc: BaseException, args: argparse.Namespace | None, err: Text
         return code
     message = error_line(exc)
     if code == EXIT_INTERNAL and not debug:
-        saved = _save_traceback(exc, getattr(args, "out", None))
+        out_dir = getattr(args, "out", None)
+        if getattr(args, "command", None) == "lens":  # its --out is a file: keep the traceback beside it
+            out_dir = str(Path(out_dir).parent) if out_dir and Path(out_dir).parent.is_dir() else None
+        saved = _save_traceback(exc, out_dir)
         message += f" (traceback saved to {saved})"
     err.write(f"{_PROG}: error: {message}\n")
     hint = getattr(exc, "hint", None)

@@ -43,7 +43,8 @@ import numpy as np
 from tracker.errors import TrackingError
 
 __all__ = ["LensModel", "LensCalibration", "LensMismatchError", "calibrate_clip",
-           "UNDISTORT_CRITERIA", "MAX_VIEWS", "MIN_VIEWS", "OUTER_REACH_WARN"]
+           "UNDISTORT_CRITERIA", "MAX_VIEWS", "MIN_VIEWS", "MAX_RMS_PX", "WARN_RMS_PX",
+           "OUTER_REACH_WARN"]
 
 #: Termination of the iterative undistortion: at most 100 iterations or a step below 1e-12
 #: (normalized coordinates). OpenCV's default (5 iterations) leaves ~0.1–1 px at the corners of
@@ -53,6 +54,15 @@ UNDISTORT_CRITERIA = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 100, 1e-1
 MAX_VIEWS = 30
 #: Fewer views with the board found than this: no calibration (exit 4 on the command line).
 MIN_VIEWS = 5
+#: A calibration whose RMS reprojection error exceeds this is refused (exit 4 on the command line):
+#: the board was misread (a wrong --board picks a sub-board whose corners shift between views) or
+#: the views are blurred; above WARN_RMS_PX a warning. A sharp printed board gives ~0.1–0.3 px
+#: (common practice, no source).
+MAX_RMS_PX = 1.0
+WARN_RMS_PX = 0.5
+#: A view whose own RMS exceeds this many times the median (and _VIEW_OUTLIER_MIN_PX) is left out.
+_VIEW_OUTLIER_FACTOR = 3.0
+_VIEW_OUTLIER_MIN_PX = 0.5
 #: Frames tried for the board: up to this many times MAX_VIEWS, evenly through the clip.
 _TRY_FACTOR = 3
 #: Detection runs on a copy at most this wide (speed); corners are refined at full size.
@@ -353,6 +363,21 @@ def _find_board(luma: np.ndarray, board: tuple[int, int]) -> np.ndarray | None:
     return corners
 
 
+def _calibrate(obj: np.ndarray, image_points: list[np.ndarray], size: tuple[int, int]
+               ) -> tuple[float, np.ndarray, np.ndarray, list[float]]:
+    """Zhang's method on the views: (RMS px, K, distortion (k1, k2, p1, p2, k3), per-view RMS px)."""
+    rms, k, dist, rvecs, tvecs = cv2.calibrateCamera(
+        [obj] * len(image_points), image_points, size, None, None,
+        criteria=(cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 200, 1e-12))
+    dist = np.asarray(dist, float).ravel()
+    per_view = []
+    for pts, rv, tv in zip(image_points, rvecs, tvecs):
+        proj, _ = cv2.projectPoints(obj, rv, tv, k, dist)
+        diff = proj.reshape(-1, 2) - np.asarray(pts, float).reshape(-1, 2)
+        per_view.append(float(np.sqrt(np.mean(np.sum(diff ** 2, axis=1)))))
+    return float(rms), k, dist, per_view
+
+
 def _spread(indices: Sequence[int], n: int) -> list[int]:
     """Up to n items of a sorted list, evenly spread over it."""
     if len(indices) <= n:
@@ -441,18 +466,26 @@ def calibrate_clip(path: str | pathlib.Path, board: tuple[int, int], square_mm: 
     used = _spread(sorted(found), max_views)
     obj = np.zeros((rows * cols, 3), np.float32)
     obj[:, :2] = np.mgrid[0:cols, 0:rows].T.reshape(-1, 2) * np.float32(square_mm)
-    image_points = [found[i] for i in used]
     w, h = info.width_px, info.height_px
-    rms, k, dist, rvecs, tvecs = cv2.calibrateCamera(
-        [obj] * len(used), image_points, (w, h), None, None,
-        criteria=(cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 200, 1e-12))
-    dist = np.asarray(dist, float).ravel()
-    per_view = []
-    for pts, rv, tv in zip(image_points, rvecs, tvecs):
-        proj, _ = cv2.projectPoints(obj, rv, tv, k, dist)
-        diff = proj.reshape(-1, 2) - np.asarray(pts, float).reshape(-1, 2)
-        per_view.append(float(np.sqrt(np.mean(np.sum(diff ** 2, axis=1)))))
     warnings: list[str] = []
+    rms, k, dist, per_view = _calibrate(obj, [found[i] for i in used], (w, h))
+    # a view that does not fit the others (a blurred or ghosted frame, a corner order flipped) is
+    # left out once, and the rest calibrated again
+    bad = [i for i, r in zip(used, per_view) if r > max(_VIEW_OUTLIER_FACTOR * float(np.median(per_view)),
+                                                         _VIEW_OUTLIER_MIN_PX)]
+    if bad and len(used) - len(bad) >= MIN_VIEWS:
+        used = [i for i in used if i not in bad]
+        rms, k, dist, per_view = _calibrate(obj, [found[i] for i in used], (w, h))
+        warnings.append(f"{len(bad)} view(s) left out for not fitting the others (frames "
+                        f"{', '.join(str(i) for i in bad)}): blurred, or the board only partly seen")
+    if rms > MAX_RMS_PX:
+        raise TrackingError(
+            f"{name}: the calibration does not fit: RMS reprojection error {rms:.2f} px over "
+            f"{len(used)} views (expected well under {MAX_RMS_PX:g} px); check --board (inner "
+            "corners per row and column of the printed board), focus and motion blur")
+    if rms > WARN_RMS_PX:
+        warnings.append(f"RMS reprojection error {rms:.2f} px is high for a sharp, flat board "
+                        f"(under {WARN_RMS_PX:g} px is usual): blur, a bent board or a wrong --board")
     try:
         lens = LensModel((w, h), (float(k[0, 0]), float(k[1, 1])), (float(k[0, 2]), float(k[1, 2])),
                          (float(dist[0]), float(dist[1]), float(dist[4])),
@@ -460,7 +493,7 @@ def calibrate_clip(path: str | pathlib.Path, board: tuple[int, int], square_mm: 
     except ValueError as exc:
         raise TrackingError(f"{name}: the calibration gave an unusable lens model ({exc}); film "
                             "the board in more places, including the frame corners") from None
-    all_pts = np.concatenate([p.reshape(-1, 2) for p in image_points])
+    all_pts = np.concatenate([found[i].reshape(-1, 2) for i in used])
     cover, outer, reach = _coverage(all_pts, w, h)
     if reach < OUTER_REACH_WARN or outer < 0.5:
         warnings.append(
@@ -471,5 +504,5 @@ def calibrate_clip(path: str | pathlib.Path, board: tuple[int, int], square_mm: 
     if len(found) < 10:
         warnings.append(f"only {len(found)} views with the board; 10 or more in different "
                         "positions and tilts give a steadier calibration")
-    return LensCalibration(lens, float(rms), len(used), n_frames, n_tried, len(found), used,
+    return LensCalibration(lens, rms, len(used), n_frames, n_tried, len(found), used,
                            cover, outer, reach, (cols, rows), float(square_mm), per_view, warnings)

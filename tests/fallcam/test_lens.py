@@ -264,6 +264,10 @@ def test_lens_errors_have_their_exit_codes(board_clip, tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 4 and "checkerboard" in err and "0 of" in err
     assert not out.exists()
+    # --out in a folder that does not exist → 2, before anything is read
+    missing = tmp_path / "no_such_folder" / "lens.toml"
+    assert main(["lens", str(board_clip), "--board", "9x6", "--square-mm", "20", "--out", str(missing)]) == 2
+    assert "does not exist" in capsys.readouterr().err and not missing.parent.exists()
     # a file that is not a video → 3
     text = tmp_path / "notes.mp4"
     text.write_text("not a video\n", encoding="utf-8")
@@ -395,3 +399,36 @@ def test_track_records_the_lens_and_a_size_mismatch_exits_2(distorted_fall, tmp_
     assert "480×640" in lines[0] and "1080×1920" in lines[0]
     assert not out.exists()
 
+
+
+def test_lens_refuses_corners_that_do_not_fit(board_clip, tmp_path, capsys, monkeypatch):
+    """Corners misread by ~2 px (a sub-board whose corners shift between views, a blurred or
+    ghosted board): the RMS reprojection error is far above what a sharp board gives, and the
+    calibration is refused (exit 4) rather than written; one bad view alone is left out."""
+    import tracker.lens as lens_module
+
+    find = lens_module._find_board
+    rng = np.random.default_rng(3)
+    misread = {"all": True, "count": 0}
+
+    def noisy(luma, board):
+        corners = find(luma, board)
+        if corners is None:
+            return None
+        misread["count"] += 1
+        if misread["all"] or misread["count"] == 4:     # every view, or only the fourth
+            corners = corners + rng.normal(0.0, 2.0, corners.shape).astype(np.float32)
+        return corners
+
+    monkeypatch.setattr(lens_module, "_find_board", noisy)
+    out = tmp_path / "lens.toml"
+    code = main(["lens", str(board_clip), "--board", "9x6", "--square-mm", "20", "--out", str(out),
+                 "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 4 and "does not fit" in err and "--board" in err, err
+    assert not out.exists()
+    misread.update(all=False, count=0)
+    code = main(["lens", str(board_clip), "--board", "9x6", "--square-mm", "20", "--json", "--quiet"])
+    res = json.loads(capsys.readouterr().out)
+    assert code == 0 and res["n_views"] == 14 and res["rms_px"] < 0.1
+    assert any("1 view(s) left out" in w for w in res["warnings"])
