@@ -300,7 +300,9 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
                                    "rig file (or write it with --out).",
                        epilog="COLSxROWS counts the INNER corners (where four squares meet), e.g. "
                               "9x6 for a board of 10 × 7 squares. Exit codes: 2 bad arguments, "
-                              "3 clip missing or unreadable, 4 board found in fewer than 5 frames.")
+                              "3 clip missing or unreadable, 4 board found in fewer than 5 frames "
+                              "or a calibration that does not fit (RMS reprojection error above "
+                              "1 px).")
     p.add_argument("clip", metavar="CLIP", help="the video file of the checkerboard")
     p.add_argument("--board", required=True, metavar="COLSxROWS",
                    help="inner corners per row and per column, e.g. 9x6")
@@ -765,6 +767,8 @@ def _stdout_gone(out: TextIO) -> bool:
         return False
     import select
 
+    if not hasattr(select, "poll"):  # no poll (Windows): a broken pipe is then taken as stdout's
+        return True
     poller = select.poll()
     poller.register(fd, select.POLLOUT)
     if not any(event & select.POLLERR for _, event in poller.poll(0)):
