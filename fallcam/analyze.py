@@ -29,6 +29,7 @@ from fallcam.atomic import atomic_write_json, atomic_write_text, json_ready
 from fallcam.rig import Rig
 from physics import (calibration, drag, fluids, marks, plateau, rolling_shutter, terminal, transient,
                      uncertainty, viscosity)
+from tracker.lens import reach_fraction
 from tracker.track import TRAJECTORY_COLUMNS
 
 Progress = Callable[[int, "int | None"], None]
@@ -85,27 +86,6 @@ def _track(clip_path: Path, rig: Rig, progress: Progress | None) -> Any:
                           ball_diameter_mm=rig.ball.diameter_mm, progress=progress)
     except LensMismatchError as exc:
         raise UsageError(f"{rig.path}: {exc}") from None
-
-
-def edge_reach(x_px: np.ndarray, y_px: np.ndarray, width_px: int, height_px: int) -> float:
-    """How far points get from the frame centre towards its corners.
-
-    Parameters
-    ----------
-    x_px, y_px : ndarray
-        Positions in the displayed frame, px.
-    width_px, height_px : int
-        Displayed frame size, px.
-
-    Returns
-    -------
-    float
-        The largest distance from the frame centre over the half-diagonal (0 at the centre, 1 at
-        the outer pixel centres of the corners).
-    """
-    cx, cy = (width_px - 1) / 2.0, (height_px - 1) / 2.0
-    r = np.hypot(np.asarray(x_px, float) - cx, np.asarray(y_px, float) - cy)
-    return float(np.max(r) / math.hypot(cx, cy)) if r.size else 0.0
 
 
 def distortion_sensitivity(t_s: np.ndarray, x_px: np.ndarray, y_px: np.ndarray,
@@ -323,7 +303,7 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
         if frame_width_px and getattr(scale, "lens", None) is None:
             xp = g["x_px"].to_numpy(float)[in_plateau]
             yp = g["y_px"].to_numpy(float)[in_plateau]
-            out["edge_reach_fraction"] = edge_reach(xp, yp, frame_width_px, frame_height_px)
+            out["edge_reach_fraction"] = reach_fraction(xp, yp, frame_width_px, frame_height_px)
             sens = distortion_sensitivity(t[in_plateau], xp, yp, (scale.p1_px, scale.p2_px),
                                           frame_width_px, frame_height_px)
             out["distortion_sensitivity"] = sens

@@ -43,8 +43,8 @@ import numpy as np
 from tracker.errors import TrackingError
 
 __all__ = ["LensModel", "LensCalibration", "LensMismatchError", "calibrate_clip",
-           "UNDISTORT_CRITERIA", "MAX_VIEWS", "MIN_VIEWS", "MAX_RMS_PX", "WARN_RMS_PX",
-           "OUTER_REACH_WARN"]
+           "reach_fraction", "UNDISTORT_CRITERIA", "MAX_VIEWS", "MIN_VIEWS", "MAX_RMS_PX",
+           "WARN_RMS_PX", "OUTER_REACH_WARN"]
 
 #: Termination of the iterative undistortion: at most 100 iterations or a step below 1e-12
 #: (normalized coordinates). OpenCV's default (5 iterations) leaves ~0.1–1 px at the corners of
@@ -393,9 +393,17 @@ def _coverage(points: np.ndarray, width: int, height: int) -> tuple[float, float
     hit[gy, gx] = True
     ring = np.ones_like(hit)
     ring[1:-1, 1:-1] = False
-    cx, cy = (width - 1) / 2.0, (height - 1) / 2.0
-    reach = float(np.max(np.hypot(points[:, 0] - cx, points[:, 1] - cy)) / math.hypot(cx, cy))
+    reach = reach_fraction(points[:, 0], points[:, 1], width, height)
     return float(hit.mean()), float(hit[ring].mean()), min(reach, 1.0)
+
+
+def reach_fraction(x_px: Any, y_px: Any, width_px: int, height_px: int) -> float:
+    """How far points get from the frame centre towards its corners: the largest distance from
+    the centre over the half-diagonal (0 at the centre, 1 at the corner pixels' centres; 0 for
+    no points). Lens distortion is radial, so this is the measure of "near the edge"."""
+    cx, cy = (width_px - 1) / 2.0, (height_px - 1) / 2.0
+    r = np.hypot(np.asarray(x_px, float) - cx, np.asarray(y_px, float) - cy)
+    return float(np.max(r) / math.hypot(cx, cy)) if r.size else 0.0
 
 
 def calibrate_clip(path: str | pathlib.Path, board: tuple[int, int], square_mm: float, *,
