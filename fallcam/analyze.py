@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import math
+import os
 import platform
 import sys
 from importlib import metadata
@@ -31,6 +32,7 @@ from physics import (calibration, drag, fluids, marks, plateau, rolling_shutter,
                      uncertainty, viscosity)
 from tracker.lens import reach_fraction
 from tracker.track import TRAJECTORY_COLUMNS
+from tracker.video import DECODE_THREADS_ENV, available_cores
 
 Progress = Callable[[int, "int | None"], None]
 
@@ -447,6 +449,14 @@ def track_clip_to_dir(clip_path: str | Path, rig: Rig, out_dir: str | Path, *,
     return summary
 
 
+def _figure_processes() -> int:
+    """Processes to draw a clip's figures with: the cores this process may use, or, in a parallel
+    batch worker, its share of them (``$FALLCAM_DECODE_THREADS``, which the batch sets to it)."""
+    cores = available_cores()
+    share = os.environ.get(DECODE_THREADS_ENV, "").strip()
+    return max(1, min(cores, int(share))) if share.isdigit() else cores
+
+
 def analyze_clip(clip_path: str | Path, rig: Rig, out_dir: str | Path, *, overlay: bool = False,
                  progress: Progress | None = None, command: str | None = None,
                  figures: bool = True) -> dict[str, Any]:
@@ -509,11 +519,7 @@ def analyze_clip(clip_path: str | Path, rig: Rig, out_dir: str | Path, *, overla
     if figures:
         from fallcam import plots, report
 
-        figs = {
-            "position_time": plots.position_time(traj, summary, out / "position_time.png"),
-            "velocity_time": plots.velocity_time(traj, summary, out / "velocity_time.png"),
-            "residuals": plots.residuals(traj, summary, out / "residuals.png"),
-        }
+        figs = plots.clip_figures(traj, summary, out, processes=_figure_processes())
         outputs["plots"] = {k: Path(v).name for k, v in figs.items()}
         outputs["report_html"] = "report.html"
         summary["outputs"] = outputs

@@ -330,10 +330,9 @@ def _crashed(job: _ClipJob) -> ClipOutcome:
 
 
 def _share_cores(threads: int) -> None:
-    """Worker initialiser: cap the decoder's threads so parallel clips share the cores.
-
-    (OpenCV's thread pool is left alone: reconfiguring it in a forked worker whose parent had
-    already started it hangs.)
+    """Worker initialiser: cap the decoder's threads (and the processes that draw a clip's
+    figures) so parallel clips share the cores. (OpenCV runs single-threaded: ``tracker`` sets
+    that at import.)
     """
     from tracker.video import DECODE_THREADS_ENV
 

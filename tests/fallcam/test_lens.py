@@ -16,8 +16,6 @@ Truth:
 from __future__ import annotations
 
 import json
-import math
-import pathlib
 
 import cv2
 import numpy as np

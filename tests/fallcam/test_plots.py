@@ -66,6 +66,26 @@ def test_figures_with_two_tracks_and_empty_summary(tmp_path):
         png_size(getattr(plots, name)(traj, {}, tmp_path / f"{name}_bare.png"))
 
 
+def test_clip_figures_in_parallel_are_the_serial_ones(tmp_path):
+    traj, summary = case.trajectory(), case.summary()
+    (tmp_path / "one").mkdir()
+    (tmp_path / "three").mkdir()
+    serial = plots.clip_figures(traj, summary, tmp_path / "one", processes=1)
+    forked = plots.clip_figures(traj, summary, tmp_path / "three", processes=3)
+    assert list(serial) == list(forked) == ["position_time", "velocity_time", "residuals"]
+    for name in serial:
+        assert forked[name] == tmp_path / "three" / f"{name}.png"
+        assert forked[name].read_bytes() == serial[name].read_bytes()
+
+
+def test_clip_figures_error_in_a_child_reaches_the_caller(tmp_path):
+    # velocity_time is the one drawn in a child process
+    traj = case.trajectory().drop(columns=["v_mm_s"])
+    with pytest.raises(ValueError, match=r"trajectory: missing column\(s\) v_mm_s"):
+        plots.clip_figures(traj, case.summary(), tmp_path, processes=2)
+    assert not list(tmp_path.glob("velocity_time*"))
+
+
 @pytest.mark.parametrize(("drop", "name", "match"), [
     ("v_mm_s", "velocity_time", r"trajectory: missing column\(s\) v_mm_s"),
     ("z_mm", "position_time", r"trajectory: missing column\(s\) z_mm"),
