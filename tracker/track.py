@@ -495,10 +495,34 @@ def _empirical_noise(t: NDArray[np.float64], x: NDArray[np.float64], y: NDArray[
 
 # Mean |frame − background| (DN) over a first-frame blob's box above which it has moved off.
 _IMPRINT_CHANGE_DN = 3.0
+# How far behind its first point (in diameters) a passage may have left a first-frame blob: the
+# pieces measured while it moved off can be lost (refused as hidden by its own imprint), so the
+# passage kept may start a few diameters on (a rising bead: 1.8 diameters measured).
+_IMPRINT_REACH_DIAMETERS = 4.0
 
 
 def _overlap(a: tuple[float, float, float, float], b: tuple[float, float, float, float]) -> bool:
     return a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]
+
+
+def _came_from(tr: _Track, blob: tuple[float, float, float, float]) -> bool:
+    """True when the passage started on a first-frame blob (scene box): its first window covers
+    the blob, or the blob lies on its path, traced back from its first points, within
+    ``_IMPRINT_REACH_DIAMETERS`` diameters."""
+    first = tr.points[0]
+    if _overlap(_window(first), blob):
+        return True
+    lead = tr.points[min(len(tr.points), _PREDICT_POINTS) - 1]
+    ux, uy = lead.x - first.x, lead.y - first.y
+    norm = math.hypot(ux, uy)
+    if norm <= 0.0:
+        return False
+    cx, cy = (blob[0] + blob[2]) / 2.0, (blob[1] + blob[3]) / 2.0
+    back = -((cx - first.x) * ux + (cy - first.y) * uy) / norm      # distance behind the start
+    across = abs((cx - first.x) * uy - (cy - first.y) * ux) / norm
+    d = tr.diameter()
+    half = max(blob[2] - blob[0], blob[3] - blob[1]) / 2.0
+    return 0.0 < back <= _IMPRINT_REACH_DIAMETERS * d + half and across <= half + d / 2.0
 
 
 def _window(p: _Point) -> tuple[float, float, float, float]:
@@ -558,13 +582,14 @@ class _Loop:
         """Replace the background under a first-frame blob once it has moved off, and drop the
         points measured with their window over its imprint.
 
-        The blob has moved off when a confirmed passage started over its box, no followed
-        object's window covers the box any more, and the frame there differs from the model.
+        The blob has moved off when a confirmed passage came from it (:func:`_came_from`), no
+        followed object's window covers the blob or that passage's start any more, and the frame
+        there differs from the model.
         """
         windows = [tr.box(t, (0.0, 0.0), pad=4.0) for tr in self.active]
         for blob in list(self.imprints):
             origin = [_window(tr.points[0]) for tr in self.active + self.done
-                      if tr.confirmed and _overlap(_window(tr.points[0]), blob)]
+                      if tr.confirmed and _came_from(tr, blob)]
             if not origin:
                 continue
             # until it was found, the moving blob was learnt into the model along its way too
@@ -831,7 +856,7 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
             z, _ = scale.to_mm(last.x, last.y)
             warnings.append(f"track {tracks.index(tr)}: the sphere came to rest at z = {float(z):.1f} mm; "
                             "points after the stop are not part of the track")
-        if any(_overlap(_window(tr.points[0]), blob) for blob in loop.imprints):
+        if any(_came_from(tr, blob) for blob in loop.imprints):
             # lying in view in the first frame, it is in the background model too; that imprint is
             # replaced only once the sphere has moved clear of it, which this one never did
             warnings.append(f"track {tracks.index(tr)}: the sphere lay in view in the first frame and "
