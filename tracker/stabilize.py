@@ -479,16 +479,21 @@ def _sphere_like_boxes(reference: NDArray[np.uint8], diameter_px: float
         spread = 1.4826 * float(np.median(np.abs(hat.astype(np.float32) - float(np.median(hat)))))
         level = max(_BLOB_MIN_DN, _BLOB_SIGMA * spread)
         mask = (hat > level).astype(np.uint8)
-        n, _, stats, _ = cv2.connectedComponentsWithStats(mask, connectivity=8)
+        n, labels, stats, _ = cv2.connectedComponentsWithStats(mask, connectivity=8)
         lo, hi = _BLOB_SIZE_RANGE[0] * d, _BLOB_SIZE_RANGE[1] * d
+        # pieces no larger than a sphere either way: what makes a blob one of many (ruler ticks,
+        # texture); longer structure (the liquid surface, a wall, a mark) may pass close by
+        small_piece = np.maximum(stats[:, cv2.CC_STAT_WIDTH], stats[:, cv2.CC_STAT_HEIGHT]) <= hi
+        small_piece[0] = False
+        clutter = small_piece[labels]
         for x, y, bw, bh, area in stats[1:]:
             if not (lo <= bw <= hi and lo <= bh <= hi
                     and _BLOB_FILL_RANGE[0] * bw * bh <= area <= _BLOB_FILL_RANGE[1] * bw * bh):
                 continue
-            # alone on the background: a ring half a diameter wide around it is nearly empty
-            # (a tick of a ruler or a piece of a textured surface has neighbours)
+            # alone among its kind: a ring half a diameter wide around it holds almost no other
+            # small piece (a tick of a ruler or a piece of a textured surface has neighbours)
             r = int(np.ceil(0.5 * d))
-            ring = mask[max(0, y - r): y + bh + r, max(0, x - r): x + bw + r]
+            ring = clutter[max(0, y - r): y + bh + r, max(0, x - r): x + bw + r]
             if float(ring.sum()) - area <= _BLOB_RING_FILL * (ring.size - bw * bh):
                 boxes.append((x * f, y * f, (x + bw) * f, (y + bh) * f))
     return boxes

@@ -547,6 +547,7 @@ class _Loop:
         self.max_shift = 0.0
         self.n_used = 0
         self.imprints: list[tuple[int, int, int, int]] = []   # scene boxes, not yet healed
+        self.healed_t: list[float] = []                          # when each imprint was healed, s
 
     def step(self, index: int, t: float, luma: NDArray[np.uint8]) -> None:
         if self.bg is None:
@@ -610,6 +611,7 @@ class _Loop:
                         for a, b, c, d in windows]
             self.bg.update(luma, self.shift, keep_out, 1.0, region=box)
             self.imprints.remove(blob)
+            self.healed_t.append(t)
             for tr in self.active + self.done:
                 keep = [p for p in tr.points[:-1] if not _overlap(_window(p), box)]
                 tr.points = keep + tr.points[-1:]
@@ -786,6 +788,7 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
     tracks = loop.finish()
     warnings: list[str] = []
     name = pathlib.Path(path).name
+    from_first_frame = any(_came_from(tr, blob) for tr in tracks for blob in loop.imprints)
 
     tracks = _stitch(tracks)
     for tr in tracks:
@@ -795,6 +798,13 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
         _drop_partly_hidden(tr)
     tracks = [tr for tr in tracks if _coherent(tr)]
     if not tracks:
+        if loop.healed_t or from_first_frame:
+            when = f"only at t = {max(loop.healed_t):.1f} s" if loop.healed_t else "never"
+            raise TrackingError(
+                f"{name}: no sphere was measured long enough: one lay in view in the first frame and "
+                f"moved clear of where it lay {when}, and points over its own image in the background "
+                "are not used; expected a clip that starts before the sphere comes into view, or one "
+                "long enough for it to move a few diameters on")
         raise TrackingError(f"{name}: no moving sphere found in {n_frames} frames; {_NO_SPHERE}")
 
     # bubbles: bright core in a dark rim

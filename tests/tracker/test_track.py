@@ -384,6 +384,43 @@ def test_bright_bead_resting_in_the_first_frame_is_healed(tmp_path):
     assert abs(_velocity_error({"truth": truth, "spec": spec, "result": result})) < V_RTOL_CLEAN / 4
 
 
+def test_ball_held_below_the_surface_in_the_first_frame(tmp_path):
+    """A ball lies in view just below the liquid surface when the clip starts (let go from
+    tweezers), then falls. Half a diameter above it, the surface line must not hide it from the
+    first-frame blob search (before the fix it did: the ball's image stayed in the background
+    model, and its first points sat up to 0.28 px ahead of the truth)."""
+    spec = synth.ClipSpec(width_px=360, height_px=640, capture_fps=30.0, duration_s=8.0,
+                          px_per_mm=640 / 90.0, ball_diameter_mm=3.0, terminal_velocity_mm_s=3.0,
+                          tau_s=0.05, noise_dn=2.0, seed=22,
+                          drops=(synth.Drop(release_t_s=0.5, z0_mm=15.0),))
+    path = tmp_path / "held.mp4"
+    truth = synth.write_clip(spec, path)
+    result = track_clip(path, Scale.from_rig(synth.rig_dict(spec)), expect_direction="down",
+                        ball_diameter_mm=3.0)
+    traj = result.trajectory
+    assert traj["track"].nunique() == 1
+    x, y = truth.position_px(traj["t_s"].to_numpy(), 0)
+    assert float(np.max(np.hypot(traj["x_px"] - x, traj["y_px"] - y))) < 0.15    # measured 0.08
+    assert abs(_velocity_error({"truth": truth, "spec": spec, "result": result})) < V_RTOL_CLEAN / 4
+
+
+def test_too_slow_to_leave_its_first_place_is_a_clear_error(tmp_path):
+    """Lying in view in the first frame and moving 3.7 diameters in the clip, the sphere moves
+    clear of its own image in the background model too late to leave enough points: the error
+    says so (before: a −0.8 % velocity from biased points, or "no moving sphere found")."""
+    spec = synth.ClipSpec(width_px=360, height_px=640, capture_fps=30.0, duration_s=8.0,
+                          px_per_mm=640 / 90.0, ball_diameter_mm=3.0, polarity="bright",
+                          terminal_velocity_mm_s=1.5, tau_s=0.05, noise_dn=2.0, seed=21,
+                          drops=(synth.Drop(release_t_s=0.5, z0_mm=60.0, direction="up"),))
+    path = tmp_path / "slow_bright.mp4"
+    synth.write_clip(spec, path)
+    with pytest.raises(TrackingError, match=r"slow_bright\.mp4: no sphere was measured long enough: one "
+                                            r"lay in view in the first frame and moved clear of where it "
+                                            r"lay only at t = 7\.\d s"):
+        track_clip(path, Scale.from_rig(synth.rig_dict(spec)), expect_direction="up",
+                   ball_diameter_mm=3.0)
+
+
 def test_ball_passing_behind_a_label_is_one_passage(tmp_path):
     """A bright label stuck on the tube front hides the ball for a stretch of its fall. Half
     hidden, the ball's measured centre moves by several px and its height shrinks: those frames
