@@ -589,6 +589,8 @@ class _Loop:
         """
         windows = [tr.box(t, (0.0, 0.0), pad=4.0) for tr in self.active]
         for blob in list(self.imprints):
+            if blob not in self.imprints:    # healed with another one this frame
+                continue
             origin = [_window(tr.points[0]) for tr in self.active + self.done
                       if tr.confirmed and _came_from(tr, blob)]
             if not origin:
@@ -610,7 +612,9 @@ class _Loop:
             keep_out = [(int(a), int(b), int(math.ceil(c)), int(math.ceil(d)))  # scene frame
                         for a, b, c, d in windows]
             self.bg.update(luma, self.shift, keep_out, 1.0, region=box)
-            self.imprints.remove(blob)
+            # with every other blob the box holds (the same sphere found dark and bright)
+            self.imprints = [b for b in self.imprints if b is not blob and not (
+                box[0] <= b[0] and box[1] <= b[1] and b[2] <= box[2] and b[3] <= box[3])]
             self.healed_t.append(t)
             for tr in self.active + self.done:
                 keep = [p for p in tr.points[:-1] if not _overlap(_window(p), box)]
