@@ -5,7 +5,8 @@
 1. Throughput on a 1080p60 H.264 clip at a phone-like bitrate (noisy, ~18 Mbit/s):
    decode-only (PyAV, decode to grey, nothing else, with the decoder threaded as
    ``tracker.video`` threads it; PyAV's defaults printed for reference) against ``tracker.track.track_clip`` and
-   ``fallcam.analyze.analyze_clip`` (with and without figures) on the same file.
+   ``fallcam.analyze.analyze_clip`` (with and without figures) on the same file, interleaved, best
+   of five rounds each (this shared machine varies by ±5 % from one run to the next).
    Targets: track ÷ decode ≥ 0.85, analyze ÷ decode ≥ 0.85.
 2. Peak memory of tracking a 4K clip at two lengths (each in a fresh process): flat in length.
 3. ``fallcam batch`` speed-up with 2 workers against 1 on the same clips. Target ≥ 1.7 on 2 cores.
@@ -89,7 +90,7 @@ def write_rig(spec, path: Path) -> Path:
     return path
 
 
-def bench_throughput(work: Path, duration_s: float, rounds: int = 3) -> dict:
+def bench_throughput(work: Path, duration_s: float, rounds: int = 5) -> dict:
     from tracker import synth
     from tracker.track import track_clip
 

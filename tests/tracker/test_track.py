@@ -361,25 +361,35 @@ def test_slow_ball_at_rest_in_the_first_frame(tmp_path):
     assert abs(_velocity_error(entry)) < V_RTOL_CLEAN / 4
 
 
+def _lying_in_view(tmp_path, name, direction, **spec):
+    """A 360 × 640, 8 s clip of a sphere lying in view when it starts, released at 0.5 s."""
+    z0_mm = 60.0 if direction == "up" else 15.0       # above the bottom, or just below the surface
+    spec = synth.ClipSpec(width_px=360, height_px=640, capture_fps=30.0, duration_s=8.0,
+                          px_per_mm=640 / 90.0, tau_s=0.05, noise_dn=2.0,
+                          drops=(synth.Drop(release_t_s=0.5, z0_mm=z0_mm, direction=direction),), **spec)
+    path = tmp_path / f"{name}.mp4"
+    return spec, synth.write_clip(spec, path), path
+
+
+def _worst_point_px(result, truth):
+    traj = result.trajectory
+    assert traj["track"].nunique() == 1
+    x, y = truth.position_px(traj["t_s"].to_numpy(), 0)
+    return float(np.max(np.hypot(traj["x_px"] - x, traj["y_px"] - y)))
+
+
 def test_bright_bead_resting_in_the_first_frame_is_healed(tmp_path):
     """A bright bead lies in view when the clip starts and rises slowly. Where it lay, the
     background model shows a bright blob: once it moves off, that imprint is followed for a while
     as a dark object, and the bead's own passage is picked up only two diameters on, with the
     trail it left in the model below it. The imprint must still be healed (before the fix it was
     not, since no passage started over it: the first points sat 0.8–1.0 px ahead of the truth)."""
-    spec = synth.ClipSpec(width_px=360, height_px=640, capture_fps=30.0, duration_s=8.0,
-                          px_per_mm=640 / 90.0, ball_diameter_mm=4.0, polarity="bright",
-                          terminal_velocity_mm_s=2.3, tau_s=0.05, noise_dn=2.0, seed=12,
-                          drops=(synth.Drop(release_t_s=0.5, z0_mm=60.0, direction="up"),))
-    path = tmp_path / "bright_resting.mp4"
-    truth = synth.write_clip(spec, path)
+    spec, truth, path = _lying_in_view(tmp_path, "bright_resting", "up", ball_diameter_mm=4.0,
+                                       polarity="bright", terminal_velocity_mm_s=2.3, seed=12)
     result = track_clip(path, Scale.from_rig(synth.rig_dict(spec)), expect_direction="up",
                         ball_diameter_mm=4.0)
-    traj = result.trajectory
-    assert traj["track"].nunique() == 1
-    x, y = truth.position_px(traj["t_s"].to_numpy(), 0)
     # a top-lit bright sphere carries a constant vertical offset of up to 0.24 px (DEVELOPERS.md)
-    assert float(np.max(np.hypot(traj["x_px"] - x, traj["y_px"] - y))) < 0.3    # measured 0.16
+    assert _worst_point_px(result, truth) < 0.3    # measured 0.16
     assert not any("never moved clear" in w for w in result.warnings)
     assert abs(_velocity_error({"truth": truth, "spec": spec, "result": result})) < V_RTOL_CLEAN / 4
 
@@ -389,18 +399,11 @@ def test_ball_held_below_the_surface_in_the_first_frame(tmp_path):
     tweezers), then falls. Half a diameter above it, the surface line must not hide it from the
     first-frame blob search (before the fix it did: the ball's image stayed in the background
     model, and its first points sat up to 0.28 px ahead of the truth)."""
-    spec = synth.ClipSpec(width_px=360, height_px=640, capture_fps=30.0, duration_s=8.0,
-                          px_per_mm=640 / 90.0, ball_diameter_mm=3.0, terminal_velocity_mm_s=3.0,
-                          tau_s=0.05, noise_dn=2.0, seed=22,
-                          drops=(synth.Drop(release_t_s=0.5, z0_mm=15.0),))
-    path = tmp_path / "held.mp4"
-    truth = synth.write_clip(spec, path)
+    spec, truth, path = _lying_in_view(tmp_path, "held", "down", ball_diameter_mm=3.0,
+                                       terminal_velocity_mm_s=3.0, seed=22)
     result = track_clip(path, Scale.from_rig(synth.rig_dict(spec)), expect_direction="down",
                         ball_diameter_mm=3.0)
-    traj = result.trajectory
-    assert traj["track"].nunique() == 1
-    x, y = truth.position_px(traj["t_s"].to_numpy(), 0)
-    assert float(np.max(np.hypot(traj["x_px"] - x, traj["y_px"] - y))) < 0.15    # measured 0.08
+    assert _worst_point_px(result, truth) < 0.15    # measured 0.08
     assert abs(_velocity_error({"truth": truth, "spec": spec, "result": result})) < V_RTOL_CLEAN / 4
 
 
@@ -408,12 +411,8 @@ def test_too_slow_to_leave_its_first_place_is_a_clear_error(tmp_path):
     """Lying in view in the first frame and moving 3.7 diameters in the clip, the sphere moves
     clear of its own image in the background model too late to leave enough points: the error
     says so (before: a −0.8 % velocity from biased points, or "no moving sphere found")."""
-    spec = synth.ClipSpec(width_px=360, height_px=640, capture_fps=30.0, duration_s=8.0,
-                          px_per_mm=640 / 90.0, ball_diameter_mm=3.0, polarity="bright",
-                          terminal_velocity_mm_s=1.5, tau_s=0.05, noise_dn=2.0, seed=21,
-                          drops=(synth.Drop(release_t_s=0.5, z0_mm=60.0, direction="up"),))
-    path = tmp_path / "slow_bright.mp4"
-    synth.write_clip(spec, path)
+    spec, _, path = _lying_in_view(tmp_path, "slow_bright", "up", ball_diameter_mm=3.0,
+                                   polarity="bright", terminal_velocity_mm_s=1.5, seed=21)
     with pytest.raises(TrackingError, match=r"slow_bright\.mp4: no sphere was measured long enough: one "
                                             r"lay in view in the first frame and moved clear of where it "
                                             r"lay only at t = 7\.\d s"):
