@@ -517,7 +517,6 @@ def _ignore_interrupt() -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
-
 def _new_axes() -> tuple[Figure, Any]:
     fig = Figure(figsize=_FIGSIZE_IN, dpi=_DPI)
     FigureCanvasAgg(fig)

@@ -547,7 +547,7 @@ class _Loop:
         self.max_shift = 0.0
         self.n_used = 0
         self.imprints: list[tuple[int, int, int, int]] = []   # scene boxes, not yet healed
-        self.healed_t: list[float] = []                          # when each imprint was healed, s
+        self.cleared_s: list[float] = []    # when a sphere moved clear of such a box (healed), s
 
     def step(self, index: int, t: float, luma: NDArray[np.uint8]) -> None:
         if self.bg is None:
@@ -615,7 +615,7 @@ class _Loop:
             # with every other blob the box holds (the same sphere found dark and bright)
             self.imprints = [b for b in self.imprints if b is not blob and not (
                 box[0] <= b[0] and box[1] <= b[1] and b[2] <= box[2] and b[3] <= box[3])]
-            self.healed_t.append(t)
+            self.cleared_s.append(t)
             for tr in self.active + self.done:
                 keep = [p for p in tr.points[:-1] if not _overlap(_window(p), box)]
                 tr.points = keep + tr.points[-1:]
@@ -792,7 +792,7 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
     tracks = loop.finish()
     warnings: list[str] = []
     name = pathlib.Path(path).name
-    from_first_frame = any(_came_from(tr, blob) for tr in tracks for blob in loop.imprints)
+    never_cleared = any(_came_from(tr, blob) for tr in tracks for blob in loop.imprints)
 
     tracks = _stitch(tracks)
     for tr in tracks:
@@ -802,8 +802,9 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
         _drop_partly_hidden(tr)
     tracks = [tr for tr in tracks if _coherent(tr)]
     if not tracks:
-        if loop.healed_t or from_first_frame:
-            when = f"only at t = {max(loop.healed_t):.1f} s" if loop.healed_t else "never"
+        if loop.cleared_s or never_cleared:
+            when = (f"at t = {max(loop.cleared_s):.1f} s of {info.duration_s:.1f} s" if loop.cleared_s
+                    else "never")
             raise TrackingError(
                 f"{name}: no sphere was measured long enough: one lay in view in the first frame and "
                 f"moved clear of where it lay {when}, and points over its own image in the background "

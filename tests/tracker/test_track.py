@@ -439,7 +439,7 @@ def test_too_slow_to_leave_its_first_place_is_a_clear_error(tmp_path):
                                    polarity="bright", terminal_velocity_mm_s=1.5, seed=21)
     with pytest.raises(TrackingError, match=r"slow_bright\.mp4: no sphere was measured long enough: one "
                                             r"lay in view in the first frame and moved clear of where it "
-                                            r"lay only at t = 7\.\d s"):
+                                            r"lay at t = 7\.\d s of 8\.0 s"):
         track_clip(path, Scale.from_rig(synth.rig_dict(spec)), expect_direction="up",
                    ball_diameter_mm=3.0)
 
