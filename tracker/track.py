@@ -208,6 +208,7 @@ class _Track:
         self.n_gaps_bridged = 0
         self.longest_gap = 0
         self.end_reason = ""
+        self._confirmed = False
         self.crops: list[tuple[int, int, NDArray[np.uint8]]] = []   # (x0, y0, crop) scene frame
         self._levels: list[float] = []
         self._sizes: list[tuple[float, float, float]] = []
@@ -233,7 +234,9 @@ class _Track:
 
     @property
     def confirmed(self) -> bool:
-        return len(self.points) >= _CONFIRM_POINTS
+        """Seen in ``_CONFIRM_POINTS`` frames; it stays so when points are dropped later (the
+        heal of a first-frame blob drops those measured over it)."""
+        return self._confirmed
 
     @property
     def level_dn(self) -> float | None:
@@ -256,6 +259,7 @@ class _Track:
             self.n_gaps_bridged += 1
             self.longest_gap = max(self.longest_gap, self.misses)
         self.points.append(point)
+        self._confirmed = self._confirmed or len(self.points) >= _CONFIRM_POINTS
         self.misses = 0
         self._add_stats(point.m)
 

@@ -503,3 +503,27 @@ def test_an_object_already_followed_is_not_picked_up_again(monkeypatch):
     monkeypatch.setattr(loop.bg, "find_candidates", lambda *a, **k: [beside])
     loop._acquire(12, t, luma)
     assert len(loop.active) == 1
+
+
+def test_a_confirmed_passage_stays_confirmed_when_points_are_dropped():
+    """Healing a first-frame blob drops the points measured over it, which can leave a passage
+    with fewer points than it takes to confirm one: it must not become tentative again (two
+    missed frames would then end it, and an ended tentative passage is lost)."""
+    import tracker.track as track_module
+    from tracker.detect import Measurement
+
+    def point(k):
+        m = Measurement(x_px=100.0, y_px=10.0 * k, pos_u_px=0.05, diameter_h_px=12.0,
+                        diameter_v_px=12.0, blur_px=0.0, contrast_dn=100.0, area_px=113.0,
+                        hole_fraction=0.0, gain=1.0, noise_dn=1.0, level_dn=20.0,
+                        touches_edge=False)
+        return track_module._Point(k, k / 30.0, 100.0, 10.0 * k, 100.0, 10.0 * k, m, 0.0, 0.0)
+
+    tr = track_module._Track("dark", point(0))
+    for k in range(1, track_module._CONFIRM_POINTS - 1):
+        tr.add(point(k))
+    assert not tr.confirmed
+    tr.add(point(track_module._CONFIRM_POINTS - 1))
+    assert tr.confirmed
+    tr.points = tr.points[-1:]
+    assert tr.confirmed
