@@ -466,7 +466,8 @@ def clip_figures(traj: pd.DataFrame, summary: Mapping[str, Any], out_dir: str | 
         ``residuals.png``.
     processes : int
         Draw up to this many figures at once: all but one in child processes forked from this
-        one (Linux only; elsewhere, or in a daemonic process, they are drawn one after another).
+        one (Linux only; elsewhere, in a daemonic process or while other Python threads run, they
+        are drawn one after another).
         Drawing is CPU-bound and single-threaded in matplotlib, so a second core halves the
         ~0.4 s the three take.
 

@@ -398,7 +398,6 @@ def test_track_records_the_lens_and_a_size_mismatch_exits_2(distorted_fall, tmp_
     assert not out.exists()
 
 
-
 def test_lens_refuses_corners_that_do_not_fit(board_clip, tmp_path, capsys, monkeypatch):
     """Corners misread by ~2 px (a sub-board whose corners shift between views, a blurred or
     ghosted board): the RMS reprojection error is far above what a sharp board gives, and the
