@@ -616,8 +616,8 @@ class _Loop:
             keep_out = [(int(a), int(b), int(math.ceil(c)), int(math.ceil(d)))  # scene frame
                         for a, b, c, d in windows]
             self.bg.update(luma, self.shift, keep_out, 1.0, region=box)
-            # with every other blob the box holds (the same sphere found dark and bright)
-            self.imprints = [b for b in self.imprints if b is not blob and not (
+            # the box holds the blob, and with it any other found there (dark and bright parts)
+            self.imprints = [b for b in self.imprints if not (
                 box[0] <= b[0] and box[1] <= b[1] and b[2] <= box[2] and b[3] <= box[3])]
             self.cleared_s.append(t)
             for tr in self.active + self.done:
