@@ -35,10 +35,19 @@ FFmpeg's reader, and so :mod:`tracker.video`, gives both forms as the same metad
 
 Quiet. PyAV keeps FFmpeg's log (and so x264's) off by default; x265 prints on its own and is
 set to ``log-level=error``.
+
+Repeatable. The same frames give the same file. On a CPU with AVX-512, the libx264 bundled with
+PyAV (18.x) wrote a different file from the same frames now and then, also on one thread (seen:
+1 in 8 encodes differing, more under load), and so a test clip, and what was measured on it,
+changed from run to run; with its macroblock-tree pass off, or its code capped at AVX2, every
+encode was the same. The cap is kept (``asm=AVX2``, on Linux where ``/proc/cpuinfo`` lists
+AVX-512, which implies AVX2): x264's SIMD code is bit-exact with its C code, so the files are
+those it writes most of the time, at the same size and speed.
 """
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 import pathlib
@@ -312,6 +321,8 @@ def _options(codec, suffix, *, crf, bit_rate, gop, preset, capture_fps_metadata)
             codec_options.update(qmin=q, qmax=q)
     elif crf is not None:
         codec_options["crf"] = f"{float(crf):g}"
+    if codec == "h264" and _has_avx512():
+        codec_options["x264-params"] = "asm=AVX2"  # repeatable output (module docstring)
     if codec == "hevc":
         codec_options["x265-params"] = "log-level=error"  # x265 prints to stderr by itself
     if capture_fps_metadata is not None:
@@ -327,6 +338,15 @@ def _options(codec, suffix, *, crf, bit_rate, gop, preset, capture_fps_metadata)
     if suffix in (".mp4", ".mov"):  # movie timescale too, so a start offset (edit list) stays exact
         container_options["movie_timescale"] = str(MP4_TIME_BASE.denominator)
     return codec_options, container_options
+
+
+@functools.cache
+def _has_avx512() -> bool:
+    try:
+        with open("/proc/cpuinfo", encoding="ascii", errors="replace") as fh:
+            return "avx512" in fh.read()
+    except OSError:
+        return False
 
 
 def _check_frame(frame, index: int, shape) -> np.ndarray:

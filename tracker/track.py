@@ -807,13 +807,13 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
     tracks = [tr for tr in tracks if _coherent(tr)]
     if not tracks:
         if loop.cleared_s or never_cleared:
-            when = (f"at t = {max(loop.cleared_s):.1f} s of {info.duration_s:.1f} s" if loop.cleared_s
-                    else "never")
+            moved = (f"moved clear of where it lay at t = {max(loop.cleared_s):.1f} s of "
+                     f"{info.duration_s:.1f} s" if loop.cleared_s else "never moved clear of where it lay")
             raise TrackingError(
                 f"{name}: no sphere was measured long enough: one lay in view in the first frame and "
-                f"moved clear of where it lay {when}, and points over its own image in the background "
-                "are not used; expected a clip that starts before the sphere comes into view, or one "
-                "long enough for it to move a few diameters on")
+                f"{moved}, and points over its own image in the background are not used; expected a "
+                "clip that starts before the sphere comes into view, or one long enough for it to "
+                "move a few diameters on")
         raise TrackingError(f"{name}: no moving sphere found in {n_frames} frames; {_NO_SPHERE}")
 
     # bubbles: bright core in a dark rim

@@ -193,11 +193,12 @@ def test_lens_command_recovers_the_true_distortion(board_clip, tmp_path, capsys)
     # scale), to which every length ratio — and so fallcam's scale — is blind. Anisotropy and
     # every distortion error stay in the residual.
     # Measured: the corners are located to ~0.05 px RMS (cornerSubPix on a tilted, distorted
-    # board), which 15 views turn into 0.26 px (95th percentile) and 0.6–0.7 px at the frame's
-    # extreme corners, beyond the detected corners' reach (the model is extrapolated there).
-    # The ~0.1 px aim over the whole frame is not reached with 15 views at 640 × 480.
+    # board), which 15 views turn into 0.27–0.43 px (95th percentile; 12 noise realisations of
+    # this clip) and 0.6–0.95 px at the frame's extreme corners, beyond the detected corners'
+    # reach (the model is extrapolated there). The ~0.1 px aim over the whole frame is not
+    # reached with 15 views at 640 × 480.
     err = _after_similarity(xi, yi, xi_true, yi_true)
-    assert float(np.percentile(err, 95)) < 0.35, (float(np.percentile(err, 95)), lens)
+    assert float(np.percentile(err, 95)) < 0.5, (float(np.percentile(err, 95)), lens)
     assert float(err.max()) < 1.0, (float(err.max()), lens)
     # What it leaves in a velocity: vertical stretches anywhere in the frame, the scale taken from
     # the stretch's own end points, the velocity a least-squares slope over the stretch (as the

@@ -9,6 +9,7 @@ against t_s over the constant-speed part (after the 99.9 % settling time).
 
 import json
 import math
+import re
 
 import matplotlib.image
 import numpy as np
@@ -361,12 +362,13 @@ def test_slow_ball_at_rest_in_the_first_frame(tmp_path):
     assert abs(_velocity_error(entry)) < V_RTOL_CLEAN / 4
 
 
-def _lying_in_view(tmp_path, name, direction, **spec):
+def _lying_in_view(tmp_path, name, direction, release_t_s=0.5, **spec):
     """A 360 × 640, 8 s clip of a sphere lying in view when it starts, released at 0.5 s."""
     z0_mm = 60.0 if direction == "up" else 15.0       # above the bottom, or just below the surface
     spec = synth.ClipSpec(width_px=360, height_px=640, capture_fps=30.0, duration_s=8.0,
                           px_per_mm=640 / 90.0, tau_s=0.05, noise_dn=2.0,
-                          drops=(synth.Drop(release_t_s=0.5, z0_mm=z0_mm, direction=direction),), **spec)
+                          drops=(synth.Drop(release_t_s=release_t_s, z0_mm=z0_mm, direction=direction),),
+                          **spec)
     path = tmp_path / f"{name}.mp4"
     return spec, synth.write_clip(spec, path), path
 
@@ -391,7 +393,8 @@ def test_bright_bead_resting_in_the_first_frame_is_healed(tmp_path):
     # a top-lit bright sphere carries a constant vertical offset of up to 0.24 px (DEVELOPERS.md)
     assert _worst_point_px(result, truth) < 0.3    # measured 0.16
     assert not any("never moved clear" in w for w in result.warnings)
-    assert abs(_velocity_error({"truth": truth, "spec": spec, "result": result})) < V_RTOL_CLEAN / 4
+    # a crude fit of a short passage: −0.068 … +0.062 % over random states 12–16
+    assert abs(_velocity_error({"truth": truth, "spec": spec, "result": result})) < V_RTOL_CLEAN / 2
 
 
 def test_ball_held_below_the_surface_in_the_first_frame(tmp_path):
@@ -431,17 +434,25 @@ def test_two_balls_lying_below_the_surface_do_not_move_the_camera(tmp_path):
         assert abs(_velocity_error({"truth": truth, "spec": spec, "result": result}, k)) < V_RTOL_CLEAN / 4
 
 
-def test_too_slow_to_leave_its_first_place_is_a_clear_error(tmp_path):
-    """Lying in view in the first frame and moving 3.7 diameters in the clip, the sphere moves
-    clear of its own image in the background model too late to leave enough points: the error
-    says so (before: a −0.8 % velocity from biased points, or "no moving sphere found")."""
-    spec, _, path = _lying_in_view(tmp_path, "slow_bright", "up", ball_diameter_mm=3.0,
+@pytest.mark.parametrize(("release_t_s", "moved"), [
+    (0.5, r"moved clear of where it lay at t = (\d\.\d) s of 8\.0 s"),
+    (4.0, r"never moved clear of where it lay"),
+])
+def test_too_slow_to_leave_its_first_place_is_a_clear_error(tmp_path, release_t_s, moved):
+    """Lying in view in the first frame and moving 3.7 diameters (or 1.6) in the clip, the sphere
+    moves clear of its own image in the background model too late to leave enough points (or not
+    at all): the error says so (before: a −0.8 % velocity from biased points, or "no moving sphere
+    found"). When it clears depends on the noise: 5.1–7.4 s over random states 21–37, one of
+    which (29) left a short passage to measure instead."""
+    spec, _, path = _lying_in_view(tmp_path, "slow_bright", "up", release_t_s, ball_diameter_mm=3.0,
                                    polarity="bright", terminal_velocity_mm_s=1.5, seed=21)
     with pytest.raises(TrackingError, match=r"slow_bright\.mp4: no sphere was measured long enough: one "
-                                            r"lay in view in the first frame and moved clear of where it "
-                                            r"lay at t = 7\.\d s of 8\.0 s"):
+                                            rf"lay in view in the first frame and {moved}, and points") as err:
         track_clip(path, Scale.from_rig(synth.rig_dict(spec)), expect_direction="up",
                    ball_diameter_mm=3.0)
+    cleared = re.search(r"at t = (\d\.\d) s", str(err.value))
+    if cleared:  # not before it has risen one diameter (2 s at 1.5 mm/s)
+        assert release_t_s + 2.0 <= float(cleared.group(1)) < 8.0
 
 
 def test_ball_passing_behind_a_label_is_one_passage(tmp_path):
