@@ -26,7 +26,7 @@ import pandas as pd
 
 from fallcam.report import finite_or_none
 from tracker.encode import write_clip
-from tracker.video import ClipInfo, iter_frames, probe
+from tracker.video import ClipInfo, iter_frames, read_clip
 
 __all__ = ["MAX_WIDTH_PX", "write_overlay"]
 
@@ -82,10 +82,10 @@ def write_overlay(clip_path: str | os.PathLike, traj: pd.DataFrame, summary: Map
     if missing:
         raise ValueError(f"trajectory: missing column(s) {', '.join(missing)}; expected frame, "
                          "x_px, y_px, track (DEVELOPERS.md)")
-    info = probe(clip_path)
+    info, first_pass = read_clip(clip_path)
     n_total = 2 * info.n_frames
     times_s = []
-    for frame in iter_frames(clip_path, info=info):
+    for frame in first_pass:
         # stored (file) times: the overlay plays at the speed of the source, slow motion included
         times_s.append(frame.t_s / info.time_scale)
         if progress is not None:

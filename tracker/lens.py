@@ -438,7 +438,7 @@ def calibrate_clip(path: str | pathlib.Path, board: tuple[int, int], square_mm: 
     ValueError
         Bad ``board``, ``square_mm`` or ``max_views``.
     """
-    from tracker.video import iter_frames, probe
+    from tracker.video import read_clip
 
     cols, rows = board
     if not all(isinstance(v, int) and not isinstance(v, bool) and v >= 2 for v in (cols, rows)):
@@ -447,7 +447,7 @@ def calibrate_clip(path: str | pathlib.Path, board: tuple[int, int], square_mm: 
         raise ValueError(f"square_mm = {square_mm!r}: expected a square size > 0 mm")
     if not (isinstance(max_views, int) and max_views >= MIN_VIEWS):
         raise ValueError(f"max_views = {max_views!r}: expected a whole number ≥ {MIN_VIEWS}")
-    info = probe(path)
+    info, frames = read_clip(path)
     n_total = info.n_frames if info.n_frames > 0 else None
     n_try = max_views * _TRY_FACTOR
     wanted: set[int] | None = None
@@ -456,7 +456,7 @@ def calibrate_clip(path: str | pathlib.Path, board: tuple[int, int], square_mm: 
                                .astype(int)).tolist())
     found: dict[int, np.ndarray] = {}
     n_frames = n_tried = 0
-    for frame in iter_frames(path, info=info):
+    for frame in frames:
         n_frames += 1
         if not frame.duplicate and (wanted is None or frame.index in wanted):
             n_tried += 1

@@ -33,6 +33,7 @@ millimetres only through ``scale.to_mm``.
 from __future__ import annotations
 
 import bisect
+import contextlib
 import math
 import pathlib
 import statistics
@@ -47,7 +48,7 @@ from numpy.typing import NDArray
 from tracker.detect import Background, Measurement, measure
 from tracker.errors import TrackingError
 from tracker.stabilize import Stabilizer
-from tracker.video import ClipInfo, iter_frames, probe
+from tracker.video import ClipInfo, read_clip
 
 __all__ = ["TRAJECTORY_COLUMNS", "TrackResult", "track_clip", "save_check_picture"]
 
@@ -777,22 +778,24 @@ def track_clip(path: str | pathlib.Path, scale: ScaleLike, *, capture_fps: float
     if ball_diameter_mm is not None and not (isinstance(ball_diameter_mm, (int, float))
                                              and math.isfinite(ball_diameter_mm) and ball_diameter_mm > 0):
         raise ValueError(f"ball_diameter_mm = {ball_diameter_mm!r}: expected a diameter > 0 in mm")
-    info = probe(path, capture_fps=capture_fps)
-    lens = getattr(scale, "lens", None)
-    if lens is not None:  # a calibration holds only for the frame size it was made at
-        lens.check_frame(info.width_px, info.height_px, pathlib.Path(path).name)
-    loop = _Loop(info, None if ball_diameter_mm is None else ball_diameter_mm * float(scale.px_per_mm))
-    n_frames = 0
-    n_dup = 0
-    total = info.n_frames if info.n_frames > 0 else None
-    for frame in iter_frames(path, info=info):
-        n_frames += 1
-        if frame.duplicate:
-            n_dup += 1
-        else:
-            loop.step(frame.index, frame.t_s, frame.luma)
-        if progress is not None:
-            progress(n_frames, total)
+    info, frames = read_clip(path, capture_fps=capture_fps)
+    with contextlib.closing(frames):
+        lens = getattr(scale, "lens", None)
+        if lens is not None:  # a calibration holds only for the frame size it was made at
+            lens.check_frame(info.width_px, info.height_px, pathlib.Path(path).name)
+        ball_px = None if ball_diameter_mm is None else ball_diameter_mm * float(scale.px_per_mm)
+        loop = _Loop(info, ball_px)
+        n_frames = 0
+        n_dup = 0
+        total = info.n_frames if info.n_frames > 0 else None
+        for frame in frames:
+            n_frames += 1
+            if frame.duplicate:
+                n_dup += 1
+            else:
+                loop.step(frame.index, frame.t_s, frame.luma)
+            if progress is not None:
+                progress(n_frames, total)
     tracks = loop.finish()
     warnings: list[str] = []
     name = pathlib.Path(path).name

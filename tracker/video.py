@@ -5,7 +5,8 @@ decoding, except the first frame for its rotation and pixel format) and returns 
 :class:`ClipInfo`: timing source, frame-interval statistics, gaps, slow-motion rescale, rotation,
 warnings. :func:`iter_frames` then decodes the clip sequentially from the start (never seeking,
 so "frame n" is well defined on variable-rate files) and yields one :class:`Frame` at a time:
-memory stays flat in clip length.
+memory stays flat in clip length. :func:`read_clip` does both at once: the decoder opens and
+warms up in a background thread while the packets are scanned (the usual way in).
 
 Time. Each frame's time comes from its own presentation timestamp, ``t_s = (pts − pts0) ×
 time_base × time_scale``, never from a nominal frame rate, unless the file has no usable
@@ -41,7 +42,7 @@ import pathlib
 import queue
 import re
 import threading
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import asdict, dataclass
 from fractions import Fraction
 from typing import Any
@@ -57,6 +58,7 @@ __all__ = [
     "Frame",
     "probe",
     "iter_frames",
+    "read_clip",
     "ANDROID_CAPTURE_FPS_KEY",
     "SAME_RATE_TOLERANCE",
     "DISAGREEMENT_TOLERANCE",
@@ -306,13 +308,53 @@ def iter_frames(
         Both ``capture_fps`` and ``info`` given, or ``info`` is for another file.
     """
     if info is None:
-        info = probe(path, capture_fps=capture_fps)
-    elif capture_fps is not None:
+        return read_clip(path, capture_fps=capture_fps)[1]
+    if capture_fps is not None:
         raise ValueError(f"capture_fps = {capture_fps!r} with info: give capture_fps to probe() instead")
-    elif pathlib.Path(info.path).resolve() != pathlib.Path(path).resolve():
+    if pathlib.Path(info.path).resolve() != pathlib.Path(path).resolve():
         raise ValueError(f"info is for {info.path!r}, not {str(path)!r}: expected probe() of the same file")
-    frames = _decode(pathlib.Path(path), info)
-    return _prefetched(frames, PREFETCH_FRAMES) if PREFETCH_FRAMES > 0 else frames
+    frames = _decode(pathlib.Path(path), lambda: info)
+    return _Prefetch(frames, PREFETCH_FRAMES) if PREFETCH_FRAMES > 0 else frames
+
+
+def read_clip(path: str | pathlib.Path, *,
+              capture_fps: float | None = None) -> tuple[ClipInfo, Iterator[Frame]]:
+    """:func:`probe` a clip and decode it, the decoder opening while the packets are scanned.
+
+    Opening the file for decoding and decoding its first frames (~0.1 s for 1080p) take about as
+    long as the probe's packet pass; here they run at once, in the decoding thread and in the
+    caller's.
+
+    Parameters
+    ----------
+    path, capture_fps
+        As for :func:`probe`.
+
+    Returns
+    -------
+    info : ClipInfo
+        As :func:`probe` returns it.
+    frames : iterator of Frame
+        As :func:`iter_frames` returns it. Iterate it to the end or ``close()`` it (it is also a
+        context manager): until then a thread holds the file open.
+
+    Raises
+    ------
+    tracker.errors.ClipError, ValueError
+        As :func:`probe`, at call time (the decoding thread is stopped first).
+    """
+    if PREFETCH_FRAMES <= 0:
+        info = probe(path, capture_fps=capture_fps)
+        return info, _decode(pathlib.Path(path), lambda: info)
+    known = _Pending()
+    frames = _Prefetch(_decode(pathlib.Path(path), known.get), PREFETCH_FRAMES, on_close=known.cancel)
+    try:
+        info = probe(path, capture_fps=capture_fps)
+    except BaseException:
+        frames.close()  # the probe's error is the one to report, not what the thread met
+        raise
+    known.set(info)
+    return info, frames
 
 
 #: Frames decoded ahead of the consumer by :func:`iter_frames`' background thread. FFmpeg's frame
@@ -322,46 +364,101 @@ PREFETCH_FRAMES = 4
 _END = object()
 
 
-def _prefetched(frames: Iterator[Frame], depth: int) -> Iterator[Frame]:
-    """Run ``frames`` in a background thread, ``depth`` items ahead; exceptions are re-raised
-    in the consumer, in order."""
-    q: queue.Queue = queue.Queue(maxsize=depth)
-    stop = threading.Event()
+class _Cancelled(Exception):
+    """The caller stopped before the decoding thread learnt the clip's ClipInfo."""
 
-    def put(item) -> bool:
-        while not stop.is_set():
+
+class _Pending:
+    """The ClipInfo the decoding thread waits for while :func:`read_clip`'s caller probes."""
+
+    def __init__(self) -> None:
+        self._ready = threading.Event()
+        self._info: ClipInfo | None = None
+
+    def set(self, info: ClipInfo) -> None:
+        self._info = info
+        self._ready.set()
+
+    def cancel(self) -> None:
+        self._ready.set()
+
+    def get(self) -> ClipInfo:
+        self._ready.wait()
+        if self._info is None:
+            raise _Cancelled
+        return self._info
+
+
+class _Prefetch(Iterator[Frame]):
+    """``frames`` run in a background thread started at once, ``depth`` items ahead of the
+    consumer; exceptions are re-raised in the consumer, in order. The end of the frames, an
+    exception, :meth:`close` or garbage collection stops the thread (``on_close`` first)."""
+
+    def __init__(self, frames: Iterator[Frame], depth: int, on_close: Any = None) -> None:
+        self._queue: queue.Queue = queue.Queue(maxsize=depth)
+        self._stop = threading.Event()
+        self._on_close = on_close
+        self._closed = False
+        self._worker = threading.Thread(target=self._produce, args=(frames,), name="fallcam-decode",
+                                        daemon=True)
+        self._worker.start()
+
+    def _put(self, item) -> bool:
+        while not self._stop.is_set():
             try:
-                q.put(item, timeout=0.05)
+                self._queue.put(item, timeout=0.05)
                 return True
             except queue.Full:
                 continue
         return False
 
-    def produce() -> None:
+    def _produce(self, frames: Iterator[Frame]) -> None:
         try:
             for frame in frames:
-                if not put(frame):
+                if not self._put(frame):
                     break
             else:
-                put(_END)
+                self._put(_END)
+        except _Cancelled:
+            pass
         except BaseException as exc:  # noqa: BLE001 - handed to the consumer
-            put(exc)
+            self._put(exc)
         finally:
             frames.close()
 
-    worker = threading.Thread(target=produce, name="fallcam-decode", daemon=True)
-    worker.start()
-    try:
-        while True:
-            item = q.get()
-            if item is _END:
-                return
-            if isinstance(item, BaseException):
-                raise item
-            yield item
-    finally:
-        stop.set()
-        worker.join()
+    def __next__(self) -> Frame:
+        if self._closed:
+            raise StopIteration
+        item = self._queue.get()
+        if item is _END:
+            self.close()
+            raise StopIteration
+        if isinstance(item, BaseException):
+            self.close()
+            raise item
+        return item
+
+    def close(self) -> None:
+        if self._closed:
+            return
+        self._closed = True
+        self._stop.set()
+        if self._on_close is not None:
+            self._on_close()
+        self._worker.join()
+
+    def __enter__(self) -> _Prefetch:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def __del__(self) -> None:
+        # dropped unfinished: tell the thread to stop, without waiting (at interpreter exit a
+        # daemon thread may never run again to be joined); it closes the file within 0.05 s
+        self._stop.set()
+        if self._on_close is not None:
+            self._on_close()
 
 
 # ---------------------------------------------------------------------------------------------
@@ -736,12 +833,14 @@ def _same_picture(luma: np.ndarray, previous: np.ndarray | None) -> bool:
                 and np.array_equal(luma, previous))
 
 
-def _decode(clip: pathlib.Path, info: ClipInfo) -> Iterator[Frame]:
+def _decode(clip: pathlib.Path, get_info: Callable[[], ClipInfo]) -> Iterator[Frame]:
+    """Frames of ``clip``. ``get_info()`` is first called once the first frame is decoded or a
+    packet fails (until then the caller may still be probing the clip)."""
     with _open(clip) as container:
         stream = _video_stream(container, clip)
         configure_decoder(stream)
-        tick_s = float(stream.time_base or 1) * info.time_scale
-        nominal_step_s = info.time_scale / info.stored_fps
+        time_base = float(stream.time_base or 1)
+        info: ClipInfo | None = None
         packets = container.demux(stream)
         mode_for = {}  # pixel format name → how to take its luma (decided once per format)
         pts0 = previous_pts = None
@@ -750,12 +849,13 @@ def _decode(clip: pathlib.Path, info: ClipInfo) -> Iterator[Frame]:
         while True:
             try:
                 packet = next(packets)
-                if packet.is_corrupt and info.truncated:
+                if packet.is_corrupt and (info := info or get_info()).truncated:
                     continue
                 decoded = stream.decode(packet)
             except StopIteration:
                 break
             except av.FFmpegError as exc:
+                info = info or get_info()
                 if info.truncated and index >= 2:
                     decoded = _drain(stream)  # the cut end: keep what the decoder still holds
                     packets = iter(())
@@ -764,6 +864,8 @@ def _decode(clip: pathlib.Path, info: ClipInfo) -> Iterator[Frame]:
                     raise ClipError(f"clip {clip}: decoding failed after {index} frames ({reason}); "
                                     "expected an undamaged file") from None
             for frame in decoded:
+                if info is None:
+                    info = get_info()
                 if (frame.width, frame.height) != (info.stored_width_px, info.stored_height_px):
                     raise ClipError(f"clip {clip}: frame {index} is {frame.width}×{frame.height} px, "
                                     f"the clip started at {info.stored_width_px}×{info.stored_height_px}; "
@@ -775,9 +877,9 @@ def _decode(clip: pathlib.Path, info: ClipInfo) -> Iterator[Frame]:
                     if pts0 is None:
                         pts0 = frame.pts
                     previous_pts = frame.pts
-                    t_s = (frame.pts - pts0) * tick_s
+                    t_s = (frame.pts - pts0) * (time_base * info.time_scale)
                 else:
-                    t_s = index * nominal_step_s
+                    t_s = index * (info.time_scale / info.stored_fps)
                 mode = mode_for.get(frame.format.name)
                 if mode is None:
                     mode = mode_for[frame.format.name] = _luma_mode(frame.format)

@@ -6,6 +6,7 @@ deliberately cannot make); truths are the arrays and times handed to the encoder
 
 import json
 import struct
+import threading
 import tracemalloc
 
 import av
@@ -14,7 +15,7 @@ import pytest
 
 from tracker.encode import MKV_TIME_BASE, MP4_TIME_BASE, write_clip
 from tracker.errors import ClipError
-from tracker.video import ClipInfo, Frame, iter_frames, probe
+from tracker.video import ClipInfo, Frame, iter_frames, probe, read_clip
 
 W, H = 64, 48  # stored (sensor) frame size of the small test clips
 TIME_EPS_S = 1e-9  # float64 arithmetic on tick counts, far below any time base
@@ -26,8 +27,14 @@ def _noise(n, seed=0, shape=(H, W)):
 
 
 def _read(path, **kwargs):
-    info = probe(path, **kwargs)
-    return info, list(iter_frames(path, info=info))
+    """The way the tracker reads: probe and decoder start at once (the decoder learns the
+    ClipInfo late, also on the damaged-file paths)."""
+    info, frames = read_clip(path, **kwargs)
+    return info, list(frames)
+
+
+def _decoding_threads():
+    return [t for t in threading.enumerate() if t.name == "fallcam-decode"]
 
 
 # ---- time -----------------------------------------------------------------------------------------
@@ -422,6 +429,39 @@ def test_iter_frames_argument_checks(tmp_path):
         iter_frames(a, info=info, capture_fps=240)
     with pytest.raises(ValueError, match="info is for .*a.mp4'?, not .*b.mp4"):
         iter_frames(b, info=info)
+
+
+def test_read_clip_is_probe_then_iter_frames(tmp_path):
+    rng = np.random.default_rng(4)
+    times = np.cumsum(rng.uniform(1 / 120, 1 / 25, 30))
+    path = tmp_path / "vfr.mp4"
+    write_clip(path, _noise(30, seed=4), times, codec="h264", rotation_deg=90)
+    info, frames = _read(path)
+    sequential = probe(path)
+    assert info == sequential
+    for got, want in zip(frames, iter_frames(path, info=sequential), strict=True):
+        assert (got.index, got.t_s, got.duplicate) == (want.index, want.t_s, want.duplicate)
+        np.testing.assert_array_equal(got.luma, want.luma)
+    assert not _decoding_threads()
+
+
+def test_read_clip_stops_its_thread_however_it_ends(tmp_path):
+    path = tmp_path / "c.mp4"
+    write_clip(path, _noise(20), np.arange(20) / 30)
+    info, frames = read_clip(path)  # closed before the first frame is taken
+    frames.close()
+    with read_clip(path)[1] as frames:  # left after two frames
+        next(frames), next(frames)
+    assert not _decoding_threads()
+    assert list(frames) == []  # a closed reader is empty
+    # the probe fails: its error is raised, and the decoder that started with it is stopped
+    text = tmp_path / "notes.mp4"
+    text.write_text("not a video\n" * 100)
+    with pytest.raises(ClipError, match="not a readable video"):
+        read_clip(text)
+    with pytest.raises(ValueError, match="capture_fps = -1"):
+        read_clip(path, capture_fps=-1)
+    assert not _decoding_threads()
 
 
 # ---- files without timestamps ---------------------------------------------------------------------
