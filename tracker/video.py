@@ -364,6 +364,32 @@ PREFETCH_FRAMES = 4
 _END = object()
 
 
+def _produce(frames: Iterator[Frame], q: queue.Queue, stop: threading.Event) -> None:
+    """The decoding thread of :class:`_Prefetch`: frames, then the end or the exception."""
+
+    def put(item) -> bool:
+        while not stop.is_set():
+            try:
+                q.put(item, timeout=0.05)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    try:
+        for frame in frames:
+            if not put(frame):
+                break
+        else:
+            put(_END)
+    except _Cancelled:
+        pass
+    except BaseException as exc:  # noqa: BLE001 - handed to the consumer
+        put(exc)
+    finally:
+        frames.close()
+
+
 class _Cancelled(Exception):
     """The caller stopped before the decoding thread learnt the clip's ClipInfo."""
 
@@ -392,39 +418,17 @@ class _Pending:
 class _Prefetch(Iterator[Frame]):
     """``frames`` run in a background thread started at once, ``depth`` items ahead of the
     consumer; exceptions are re-raised in the consumer, in order. The end of the frames, an
-    exception, :meth:`close` or garbage collection stops the thread (``on_close`` first)."""
+    exception, :meth:`close` or dropping the reader stops the thread (``on_close`` first)."""
 
     def __init__(self, frames: Iterator[Frame], depth: int, on_close: Any = None) -> None:
         self._queue: queue.Queue = queue.Queue(maxsize=depth)
         self._stop = threading.Event()
         self._on_close = on_close
         self._closed = False
-        self._worker = threading.Thread(target=self._produce, args=(frames,), name="fallcam-decode",
-                                        daemon=True)
+        # the thread holds the queue and the flag, not this reader: dropped, it is collected
+        self._worker = threading.Thread(target=_produce, args=(frames, self._queue, self._stop),
+                                        name="fallcam-decode", daemon=True)
         self._worker.start()
-
-    def _put(self, item) -> bool:
-        while not self._stop.is_set():
-            try:
-                self._queue.put(item, timeout=0.05)
-                return True
-            except queue.Full:
-                continue
-        return False
-
-    def _produce(self, frames: Iterator[Frame]) -> None:
-        try:
-            for frame in frames:
-                if not self._put(frame):
-                    break
-            else:
-                self._put(_END)
-        except _Cancelled:
-            pass
-        except BaseException as exc:  # noqa: BLE001 - handed to the consumer
-            self._put(exc)
-        finally:
-            frames.close()
 
     def __next__(self) -> Frame:
         if self._closed:

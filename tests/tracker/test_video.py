@@ -7,6 +7,7 @@ deliberately cannot make); truths are the arrays and times handed to the encoder
 import json
 import struct
 import threading
+import time
 import tracemalloc
 
 import av
@@ -454,6 +455,14 @@ def test_read_clip_stops_its_thread_however_it_ends(tmp_path):
         next(frames), next(frames)
     assert not _decoding_threads()
     assert list(frames) == []  # a closed reader is empty
+    for frame in iter_frames(path):  # left by a loop, and dropped: its thread ends by itself
+        break
+    del frame
+    for _ in range(100):
+        if not _decoding_threads():
+            break
+        time.sleep(0.01)
+    assert not _decoding_threads()
     # the probe fails: its error is raised, and the decoder that started with it is stopped
     text = tmp_path / "notes.mp4"
     text.write_text("not a video\n" * 100)
