@@ -52,6 +52,7 @@ _DPI = 150
 _PNG_COMPRESS_LEVEL = 3
 _MARKERS_PER_TRACK = 24  # enough markers to tell tracks apart in greyscale, few enough to read
 _LABEL_GAP = 0.085  # axes fraction taken by a two-line 8 pt margin label on a 4.8 in figure
+_GAP_FACTOR = 1.5  # as tracker.video's: an interval over 1.5 × the typical one is a gap
 _VELOCITY_BINS = 12  # block means on the plateau: few enough to see a drift through the noise
 
 _REQUIRED_COLUMNS = ("t_s", "z_mm", "track")
@@ -109,8 +110,8 @@ def position_time(traj: pd.DataFrame, summary: Mapping[str, Any], path: str | os
                        hatch=_PLATEAU_HATCHES[n % len(_PLATEAU_HATCHES)], edgecolor="0.45",
                        linewidth=0.0,
                        label=f"plateau, track {track_id}: {plateau[0]:.2f}–{plateau[1]:.2f} s")
-        ax.plot(t, z, color=style["color"], linestyle=style["linestyle"], linewidth=1.2,
-                marker=style["marker"], markersize=3.5, markerfacecolor="white",
+        ax.plot(*_gaps_broken(t, z), color=style["color"], linestyle=style["linestyle"],
+                linewidth=1.2, marker=style["marker"], markersize=3.5, markerfacecolor="white",
                 markevery=max(1, len(t) // _MARKERS_PER_TRACK), label=f"track {track_id}")
         line = _plateau_line(rows, track)
         if line is not None:
@@ -180,8 +181,8 @@ def velocity_time(traj: pd.DataFrame, summary: Mapping[str, Any], path: str | os
         style = _style(n)
         track = by_id.get(int(track_id), {})
         t, v = rows["t_s"].to_numpy(float), rows["v_mm_s"].to_numpy(float)
-        ax_full.plot(t, v, color=style["color"], linestyle=style["linestyle"], linewidth=1.0,
-                     marker=style["marker"], markersize=3.5, markerfacecolor="white",
+        ax_full.plot(*_gaps_broken(t, v), color=style["color"], linestyle=style["linestyle"],
+                     linewidth=1.0, marker=style["marker"], markersize=3.5, markerfacecolor="white",
                      markevery=max(1, len(t) // _MARKERS_PER_TRACK), label=f"track {track_id}")
         vt = _signed_terminal_mm_s(track)
         u_vt = finite_or_none(track.get("terminal_velocity_u_m_s"))
@@ -317,8 +318,8 @@ def residuals(traj: pd.DataFrame, summary: Mapping[str, Any], path: str | os.Pat
         rms = float(np.sqrt(np.mean(res_um**2)))
         r1 = _lag1_autocorrelation(res_um)
         r1_text = f", lag-1 autocorrelation {r1:.2f}" if r1 is not None else ""
-        ax.plot(t, res_um, color=style["color"], linestyle=style["linestyle"], linewidth=0.8,
-                marker=style["marker"], markersize=3, markerfacecolor="white",
+        ax.plot(*_gaps_broken(t, res_um), color=style["color"], linestyle=style["linestyle"],
+                linewidth=0.8, marker=style["marker"], markersize=3, markerfacecolor="white",
                 markevery=max(1, len(t) // _MARKERS_PER_TRACK),
                 label=f"track {track_id}: RMS {rms:.3g} µm over {len(t)} points{r1_text}")
         extent = max(extent, float(np.max(np.abs(res_um))))
@@ -516,6 +517,20 @@ def _ignore_interrupt() -> None:
     """Child initialiser: Ctrl-C is the parent's to handle (it waits for the children, which
     finish their figure in a fraction of a second); a child would print a traceback."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _gaps_broken(t: np.ndarray, *ys: np.ndarray) -> tuple[np.ndarray, ...]:
+    """``(t, *ys)`` with a NaN point inside every gap, where the line then breaks: no line is
+    drawn where the sphere was not measured (hidden, or lost and bridged). A gap is an interval
+    longer than ``_GAP_FACTOR`` times the median one."""
+    t = np.asarray(t, float)
+    steps = np.diff(t)
+    gaps = np.flatnonzero(steps > _GAP_FACTOR * np.median(steps)) if len(steps) >= 2 else []
+    if len(gaps) == 0:
+        return (t, *ys)
+    at = np.asarray(gaps) + 1
+    return (np.insert(t, at, t[gaps] + 0.5 * steps[gaps]),
+            *(np.insert(np.asarray(y, float), at, np.nan) for y in ys))
 
 
 def _new_axes() -> tuple[Figure, Any]:

@@ -196,3 +196,15 @@ def test_series_plot_refuses_an_empty_or_bad_table(tmp_path):
     bad = [{**result.to_dict()["balls"][0], "v_mean_m_s": float("nan")}]
     with pytest.raises(ValueError, match=r"series table row 0 \(1.5 mm, 7810\): v_mean_m_s = nan"):
         plots.series_plot(bad, result, tmp_path / "s.png")
+
+
+def test_lines_break_where_the_sphere_was_not_measured():
+    t = np.array([0.0, 0.1, 0.2, 0.3, 0.9, 1.0, 1.1, 1.25])   # hidden from 0.3 to 0.9 s
+    y = np.arange(8.0)
+    t2, y2 = plots._gaps_broken(t, y)
+    assert np.flatnonzero(np.isnan(y2)).tolist() == [4] and t2[4] == pytest.approx(0.6)
+    np.testing.assert_array_equal(np.delete(t2, 4), t)
+    np.testing.assert_array_equal(np.delete(y2, 4), y)
+    # 1.4 × the typical interval is still a line (timing jitter, not a gap)
+    t3, y3 = plots._gaps_broken(np.array([0.0, 0.1, 0.24, 0.34]), y[:4])
+    assert not np.isnan(y3).any() and len(t3) == 4
