@@ -41,8 +41,8 @@ PyAV (18.x) wrote a different file from the same frames now and then, also on on
 1 in 8 encodes differing, more under load), and so a test clip, and what was measured on it,
 changed from run to run; with its macroblock-tree pass off, or its code capped at AVX2, every
 encode was the same. The cap is kept (``asm=AVX2``, on Linux where ``/proc/cpuinfo`` lists
-AVX-512, which implies AVX2): x264's SIMD code is bit-exact with its C code, so the files are
-those it writes most of the time, at the same size and speed.
+AVX-512, which implies AVX2): capped, x264 wrote byte for byte the file it wrote uncapped most of
+the time, in the same time (measured on a 110-frame test clip, 16 encodes under load).
 """
 
 from __future__ import annotations
