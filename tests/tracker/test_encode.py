@@ -275,9 +275,9 @@ def test_encoders_print_nothing(tmp_path, capfd, codec):
 
 def test_same_frames_give_the_same_file(tmp_path):
     """A test clip must not change from one run to the next. The libx264 bundled with PyAV wrote a
-    different file from the same frames about one time in eight on an AVX-512 CPU (more under
-    load) before its code was capped at AVX2 there (module docstring); this catches that often,
-    never wrongly."""
+    different file from the same frames in 1 to 3 encodes of 8 on an AVX-512 CPU before its code
+    was capped at AVX2 there (module docstring); this test caught that in 4 runs of 4, and cannot
+    fail wrongly."""
     rng = np.random.default_rng(7)
     yy, xx = np.mgrid[0:240, 0:320]
     background = 200.0 + 0.05 * xx
