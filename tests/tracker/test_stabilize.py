@@ -7,7 +7,7 @@ tube, the liquid surface) evaluated at (x − dx, y − dy), so each frame's tru
 import numpy as np
 import pytest
 
-from tracker.stabilize import Stabilizer
+from tracker.stabilize import Stabilizer, _uint8_mad
 
 H, W = 360, 480
 # Gauss–Newton on eight 32-px patches with 1.5 DN noise: ~0.01 px per axis; 0.03 px is the
@@ -133,3 +133,16 @@ def test_no_patch_on_a_sphere_resting_in_the_reference():
 def test_bad_reference():
     with pytest.raises(ValueError, match=r"reference: expected a 2-D grey image, got shape \(8, 8, 3\)"):
         Stabilizer(np.zeros((8, 8, 3), np.uint8))
+
+
+def test_the_histogram_mad_is_numpys():
+    """The first-frame blob search takes the spread of its top-hat image from a histogram: the
+    same number numpy.median gives, ties and averaged middle values included."""
+    rng = np.random.default_rng(3)
+    images = [rng.integers(0, 256, (31, 17)), rng.integers(0, 3, (10, 10)),   # even count, ties
+              np.clip(rng.normal(4, 3, (48, 64)), 0, 255), rng.choice([0, 255], (7, 8)),
+              np.full((5, 5), 9), np.array([[0, 1]])]                          # a half-integer median
+    for image in images:
+        image = image.astype(np.uint8)
+        want = float(np.median(np.abs(image.astype(np.float32) - float(np.median(image)))))
+        assert _uint8_mad(image) == want

@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 
 from tracker.encode import MKV_TIME_BASE, MP4_TIME_BASE, write_clip
+from tracker import video
 from tracker.errors import ClipError
 from tracker.video import ClipInfo, Frame, iter_frames, probe, read_clip
 
@@ -470,6 +471,25 @@ def test_read_clip_stops_its_thread_however_it_ends(tmp_path):
         read_clip(text)
     with pytest.raises(ValueError, match="capture_fps = -1"):
         read_clip(path, capture_fps=-1)
+    assert not _decoding_threads()
+
+
+@pytest.mark.parametrize("budget_frames, ahead", [(7, 7), (0.5, video.PREFETCH_FRAMES),
+                                                   (1000, video.PREFETCH_MAX_FRAMES)])
+def test_the_reader_decodes_ahead_as_many_frames_as_its_budget_holds(tmp_path, monkeypatch,
+                                                                      budget_frames, ahead):
+    path = tmp_path / "c.mp4"
+    write_clip(path, _noise(40), np.arange(40) / 30)
+    monkeypatch.setattr(video, "PREFETCH_BYTES", int(budget_frames * H * W))
+    with read_clip(path)[1] as frames:
+        next(frames)
+        queued, last_change = -1, time.monotonic()
+        while time.monotonic() - last_change < 0.3:   # until the decoding thread waits
+            if frames._queue.qsize() != queued:
+                queued, last_change = frames._queue.qsize(), time.monotonic()
+            time.sleep(0.01)
+        assert queued == ahead
+        assert len(list(frames)) == 39
     assert not _decoding_threads()
 
 
