@@ -394,21 +394,37 @@ def _analyze_track(g: pd.DataFrame, rig: Rig, scale: Any, marks_z_mm: np.ndarray
     return out, v_local, in_plateau
 
 
-def _clip_summary(result: Any, clip_path: Path, rig: Rig, scale: Any, command: str | None) -> dict[str, Any]:
+def _recorded_path(path: str | Path, out: Path) -> str:
+    """A path as the result files record it: relative to the output folder when the file lies in
+    it (the demo's clip and rig: the folder is written under a staging name and renamed, see
+    :func:`fallcam.atomic.atomic_output_dir`), otherwise as given."""
+    try:
+        return Path(path).resolve().relative_to(out.resolve()).as_posix()
+    except ValueError:
+        return str(path)
+
+
+def _clip_summary(result: Any, clip_path: Path, rig: Rig, scale: Any, command: str | None,
+                  out: Path) -> dict[str, Any]:
     info = result.clip
+    clip_info = info.to_dict()
+    clip_info["path"] = _recorded_path(clip_path, out)
+    rig_dict = rig.to_dict()
+    if rig_dict.get("path"):
+        rig_dict["path"] = _recorded_path(rig_dict["path"], out)
     return {
         "fallcam_version": __version__,
         "command": command or " ".join(sys.argv),
         "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
-        "clip": str(clip_path),
-        "clip_info": info.to_dict(),
+        "clip": _recorded_path(clip_path, out),
+        "clip_info": clip_info,
         "capture_fps": info.capture_fps,
         "timestamps": info.timestamps,
         "px_per_mm": scale.px_per_mm,
         "lens_corrected": scale.lens is not None,
         "lens": None if scale.lens is None else scale.lens.to_dict(),
         "scale": scale.to_dict(),
-        "rig": rig.to_dict(),
+        "rig": rig_dict,
         "reference": None if rig.liquid.state is None else rig.liquid.state.to_dict(),
         "tracks": [],
         "warnings": list(dict.fromkeys([*rig.warnings, *scale.warnings, *result.warnings])),
@@ -435,7 +451,7 @@ def track_clip_to_dir(clip_path: str | Path, rig: Rig, out_dir: str | Path, *,
     result = _track(clip_path, rig, progress)
     scale = rig.scale()
     traj = result.trajectory
-    summary = _clip_summary(result, clip_path, rig, scale, command)
+    summary = _clip_summary(result, clip_path, rig, scale, command, out)
     summary["n_points"] = int(len(traj))
     for tid, g in traj.groupby("track", sort=True):
         summary["tracks"].append({
@@ -493,7 +509,7 @@ def analyze_clip(clip_path: str | Path, rig: Rig, out_dir: str | Path, *, overla
     result = _track(clip_path, rig, progress)
     scale = rig.scale()
     traj = result.trajectory.copy()
-    summary = _clip_summary(result, clip_path, rig, scale, command)
+    summary = _clip_summary(result, clip_path, rig, scale, command, out)
     marks_z = np.asarray(rig.marks_z_mm(scale), float)
     height = int(result.clip.height_px)
     traj["v_mm_s"] = np.nan

@@ -124,6 +124,12 @@ def test_demo_renders_and_analyses(tmp_path, capsys):
     assert summary["tracks"][0]["viscosity_pa_s"] == pytest.approx(truth["viscosity_pa_s"], rel=MU_TOL)
     assert (out / "demo_clip.mp4").exists() and (out / "demo_rig.toml").exists()
     assert (out / "report.html").exists()
+    # the clip and rig are recorded where they end up, relative to the folder (it was written
+    # under a staging name and renamed: that name must not be what the report cites)
+    written = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    assert (written["clip"], written["clip_info"]["path"], written["rig"]["path"]) == (
+        "demo_clip.mp4", "demo_clip.mp4", "demo_rig.toml")
+    assert ".partial-" not in (out / "report.html").read_text(encoding="utf-8")
 
 
 def test_overlay_video_has_every_frame(tmp_path, capsys):
