@@ -312,8 +312,7 @@ class Background:
         """
         f = self.factor
         w, h = self._small_size
-        frame_small = cv2.resize(luma[: h * f, : w * f], (w, h), interpolation=cv2.INTER_AREA)
-        frame_small = frame_small.astype(np.float32)
+        frame_small = _area_downsample(luma[: h * f, : w * f], f).astype(np.float32)
         if abs(shift[0]) > 0.05 * f or abs(shift[1]) > 0.05 * f:
             m = np.float32([[1, 0, shift[0] / f], [0, 1, shift[1] / f]])
             bg = cv2.warpAffine(self.small, m, (w, h), flags=cv2.INTER_LINEAR,
@@ -367,6 +366,19 @@ class Background:
             if len(found) >= max_candidates:
                 break
         return found
+
+
+def _area_downsample(image: NDArray[np.uint8], factor: int) -> NDArray[np.uint8]:
+    """Mean of ``factor`` × ``factor`` blocks (sides multiples of ``factor``), by halvings first:
+    OpenCV halves a uint8 image ~6× faster than it reduces it 4× in one step (0.12 against
+    0.70 ms for 1080p); each step rounds, by at most half a DN."""
+    while factor % 2 == 0:
+        image = cv2.resize(image, (image.shape[1] // 2, image.shape[0] // 2), interpolation=cv2.INTER_AREA)
+        factor //= 2
+    if factor == 1:
+        return image
+    return cv2.resize(image, (image.shape[1] // factor, image.shape[0] // factor),
+                      interpolation=cv2.INTER_AREA)
 
 
 def _median(a: NDArray) -> float:

@@ -7,7 +7,7 @@ value is the area-average of the scene over the pixel, so the true centre is kno
 import numpy as np
 import pytest
 
-from tracker.detect import Background, measure
+from tracker.detect import Background, _area_downsample, measure
 
 SS = 8                 # supersampling per axis for the drawn frames
 BACKLIGHT_DN = 200.0
@@ -199,3 +199,16 @@ def test_candidates_found_and_filtered():
     # an excluded region is not searched
     near = background.find_candidates(frame, (0.0, 0.0), exclude_boxes=[(80, 100, 120, 140)])
     assert all(c.polarity == "bright" for c in near)
+
+
+@pytest.mark.parametrize("factor", [1, 2, 3, 4, 6, 8])
+def test_the_downsampled_frame_is_the_block_mean(factor):
+    """The acquisition search's coarse frame: mean of factor × factor blocks, to half a DN per
+    resizing step (8 = three halvings)."""
+    image = np.random.default_rng(factor).integers(0, 256, (24 * 5, 24 * 7)).astype(np.uint8)
+    small = _area_downsample(image, factor)
+    h, w = image.shape[0] // factor, image.shape[1] // factor
+    blocks = image.reshape(h, factor, w, factor).mean(axis=(1, 3))
+    assert small.shape == (h, w) and small.dtype == np.uint8
+    steps = {1: 0, 2: 1, 3: 1, 4: 2, 6: 2, 8: 3}[factor]
+    assert np.abs(small - blocks).max() <= 0.5 * steps
