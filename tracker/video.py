@@ -434,8 +434,9 @@ class _Pending:
 
 class _Prefetch(Iterator[Frame]):
     """``frames`` run in a background thread started at once, at least ``depth`` items ahead of
-    the consumer and as many more as :data:`PREFETCH_BYTES` holds; exceptions are re-raised in the consumer, in order. The end of the frames, an
-    exception, :meth:`close` or dropping the reader stops the thread (``on_close`` first)."""
+    the consumer and as many more as :data:`PREFETCH_BYTES` holds; exceptions are re-raised in
+    the consumer, in order. The end of the frames, an exception, :meth:`close` or dropping the
+    reader stops the thread (``on_close`` first)."""
 
     def __init__(self, frames: Iterator[Frame], depth: int, on_close: Any = None) -> None:
         self._queue: queue.Queue = queue.Queue()
