@@ -456,7 +456,8 @@ _BLOB_MIN_DN = 8.0
 
 def _uint8_mad(image: NDArray[np.uint8]) -> float:
     """Median absolute deviation from the median of a uint8 image, equal to numpy.median's
-    (middle values averaged) but from one 256-bin histogram: a whole 1080p frame in ~1 ms, not ~16."""
+    (middle values averaged) but from one 256-bin histogram: ~1.3 ms for a 1280 × 720 image
+    instead of ~14."""
     counts = np.bincount(image.ravel(), minlength=256)
     cum = np.cumsum(counts)
     n = int(cum[-1])

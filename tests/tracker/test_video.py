@@ -14,8 +14,8 @@ import av
 import numpy as np
 import pytest
 
-from tracker.encode import MKV_TIME_BASE, MP4_TIME_BASE, write_clip
 from tracker import video
+from tracker.encode import MKV_TIME_BASE, MP4_TIME_BASE, write_clip
 from tracker.errors import ClipError
 from tracker.video import ClipInfo, Frame, iter_frames, probe, read_clip
 
@@ -483,12 +483,11 @@ def test_the_reader_decodes_ahead_as_many_frames_as_its_budget_holds(tmp_path, m
     monkeypatch.setattr(video, "PREFETCH_BYTES", int(budget_frames * H * W))
     with read_clip(path)[1] as frames:
         next(frames)
-        queued, last_change = -1, time.monotonic()
-        while time.monotonic() - last_change < 0.3:   # until the decoding thread waits
-            if frames._queue.qsize() != queued:
-                queued, last_change = frames._queue.qsize(), time.monotonic()
+        deadline = time.monotonic() + 10.0
+        while frames._queue.qsize() < ahead and time.monotonic() < deadline:
             time.sleep(0.01)
-        assert queued == ahead
+        time.sleep(0.3)      # and no further: the decoding thread waits for room
+        assert frames._queue.qsize() == ahead
         assert len(list(frames)) == 39
     assert not _decoding_threads()
 
