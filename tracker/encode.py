@@ -38,9 +38,9 @@ set to ``log-level=error``.
 
 Repeatable. The same frames give the same file. On a CPU with AVX-512, the libx264 bundled with
 PyAV (18.x) wrote a different file from the same frames now and then, also on one thread (seen:
-1 to 3 encodes in 8 under load, 2 of 4 in one quiet process), and so a test clip, and what was measured on it,
-changed from run to run; with its macroblock-tree pass off, or its code capped at AVX2, every
-encode was the same. The cap is kept (``asm=AVX2``, on Linux where ``/proc/cpuinfo`` lists
+1 to 3 encodes in 8 under load, 2 of 4 in one quiet process), and so a test clip, and what was
+measured on it, changed from run to run; with its macroblock-tree pass off, or its code capped
+at AVX2, every encode was the same. The cap is kept (``asm=AVX2``, on Linux where ``/proc/cpuinfo`` lists
 AVX-512, which implies AVX2): capped, x264 wrote byte for byte the file it wrote uncapped most of
 the time, in the same time (measured on a 110-frame test clip, 16 encodes under load).
 """

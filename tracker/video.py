@@ -375,10 +375,10 @@ def _prefetch_depth(frame_bytes: int, least: int) -> int:
     return max(least, min(PREFETCH_MAX_FRAMES, PREFETCH_BYTES // max(frame_bytes, 1)))
 
 
-def _produce(frames: Iterator[Frame], q: queue.Queue, room: threading.Semaphore, least: int,
-             stop: threading.Event) -> None:
+def _produce(frames: Iterator[Frame], q: queue.Queue, room: threading.Semaphore, places: int,
+             least: int, stop: threading.Event) -> None:
     """The decoding thread of :class:`_Prefetch`: frames, then the end or the exception. Each
-    item takes one of ``room``'s places (the consumer gives it back); once the frame size is
+    item takes one of ``room``'s ``places`` (the consumer gives it back); once the frame size is
     known, the places beyond :func:`_prefetch_depth` are taken for good."""
 
     def put(item) -> bool:
@@ -393,7 +393,7 @@ def _produce(frames: Iterator[Frame], q: queue.Queue, room: threading.Semaphore,
         for frame in frames:
             if not sized:
                 sized = True
-                for _ in range(max(least, PREFETCH_MAX_FRAMES) - _prefetch_depth(frame.luma.nbytes, least)):
+                for _ in range(places - _prefetch_depth(frame.luma.nbytes, least)):
                     room.acquire()   # nothing is queued yet: never blocks
             if not put(frame):
                 break
@@ -440,13 +440,15 @@ class _Prefetch(Iterator[Frame]):
 
     def __init__(self, frames: Iterator[Frame], depth: int, on_close: Any = None) -> None:
         self._queue: queue.Queue = queue.Queue()
-        self._room = threading.Semaphore(max(depth, PREFETCH_MAX_FRAMES))
+        places = max(depth, PREFETCH_MAX_FRAMES)
+        self._room = threading.Semaphore(places)
         self._stop = threading.Event()
         self._on_close = on_close
         self._closed = False
         # the thread holds the queue and the flags, not this reader: dropped, it is collected
         self._worker = threading.Thread(target=_produce,
-                                        args=(frames, self._queue, self._room, depth, self._stop),
+                                        args=(frames, self._queue, self._room, places, depth,
+                                              self._stop),
                                         name="fallcam-decode", daemon=True)
         self._worker.start()
 
